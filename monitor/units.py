@@ -1,0 +1,42 @@
+"""Parsing of user-entered quantities (frequencies with k/M/G suffixes, durations)."""
+
+from __future__ import annotations
+
+import argparse
+import math
+import re
+
+_SUFFIX = {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
+_FREQ_RE = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([kKMG]?)\s*(?:Hz|hz)?\s*$")
+
+
+def parse_frequency(text: str) -> float:
+    """Parse '100e6', '100M', '100 MHz', '1.5k', '440' into hertz.
+
+    Raises
+    ------
+    ValueError
+        If the text is not a finite frequency.
+    """
+    m = _FREQ_RE.match(str(text))
+    if not m:
+        raise ValueError(f"not a frequency: {text!r} (examples: 440, 1.5k, 100M, 100e6)")
+    value = float(m.group(1)) * _SUFFIX[m.group(2)]
+    if not math.isfinite(value):
+        raise ValueError(f"frequency must be finite: {text!r}")
+    return value
+
+
+def frequency_arg(text: str) -> float:
+    """argparse `type=` for frequencies."""
+    try:
+        return parse_frequency(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def positive_frequency_arg(text: str) -> float:
+    value = frequency_arg(text)
+    if value <= 0:
+        raise argparse.ArgumentTypeError(f"frequency must be positive: {text!r}")
+    return value
