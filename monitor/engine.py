@@ -1,0 +1,523 @@
+"""The block engine: blocks in, one reading per gate and a summary of the whole record.
+
+One engine serves the offline path (`analyze`) and the live path (sound card, replay):
+it keeps its state across blocks, never holds more than one gate of samples, and knows
+nothing of where blocks come from. Per input mode a processor measures each gate; the
+engine assembles gates, applies the clock correction and builds the summary.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable
+from dataclasses import asdict, dataclass, field, fields
+
+import numpy as np
+
+from dsp import quality as dq
+from dsp import tone as dt
+from monitor.blocks import Block, StreamMeta
+
+GATE_MIN_S = 0.1
+GATE_MAX_S = 100.0
+
+# Doubtful-input thresholds (common practice for sound-card measurement).
+DC_WARN_FRACTION = 0.01  # |mean| above 1% of full scale
+LOW_LEVEL_DBFS = -60.0
+SILENCE_DBFS = -110.0
+TONE_SNR_MIN_DB = 0.0  # per-sample SNR below which a gate holds no usable tone
+
+
+@dataclass(frozen=True)
+class AnalysisSettings:
+    """What to measure and how; shared by `analyze`, `live` and replays."""
+
+    mode: str = "audio"
+    gate_s: float = 1.0
+    near_hz: float | None = None
+    band_hz: tuple[float, float] | None = None
+    filter: str = "none"
+    mains: str = "auto"
+    n_harmonics: int = 10
+
+    def __post_init__(self):
+        if not (GATE_MIN_S <= self.gate_s <= GATE_MAX_S):
+            raise ValueError(f"gate_s={self.gate_s} must be in [{GATE_MIN_S}, {GATE_MAX_S}] s")
+        if self.band_hz is not None:
+            lo, hi = self.band_hz
+            if not (0 <= lo < hi):
+                raise ValueError(f"band_hz={self.band_hz} must satisfy 0 <= LO < HI")
+        if self.near_hz is not None and not self.near_hz > 0:
+            raise ValueError(f"near_hz={self.near_hz} must be positive")
+
+
+@dataclass(frozen=True)
+class Reading:
+    """One gate's result. Frequencies include the clock correction.
+
+    Fields that do not apply to a gate are None (and left out of JSON).
+    """
+
+    t_s: float  # gate start, seconds from the start of the stream
+    gate_s: float
+    frequency_hz: float | None
+    uncertainty_hz: float | None
+    amplitude_dbfs: float | None
+    tone_snr_db: float | None
+    rms_dbfs: float
+    peak_dbfs: float
+    clipped_samples: int
+    snr_db: float | None = None
+    sinad_db: float | None = None
+    thd_percent: float | None = None
+    thd_n_percent: float | None = None
+    enob_bits: float | None = None
+    sfdr_db: float | None = None
+    hum_db: float | None = None
+    contiguous: bool = True
+    overflow: bool = False
+
+    def to_dict(self) -> dict:
+        return {k: v for k, v in asdict(self).items() if v is not None}
+
+    @classmethod
+    def columns(cls) -> list[str]:
+        return [f.name for f in fields(cls)]
+
+
+@dataclass(frozen=True)
+class LevelSummary:
+    rms_dbfs: float
+    peak_dbfs: float
+    clipped_samples: int
+    dc_offset: float
+
+
+@dataclass(frozen=True)
+class ToneSummary:
+    frequency_hz: float | None
+    uncertainty_hz: float | None
+    amplitude_dbfs: float | None
+    method: str | None
+    birge_ratio: float | None
+    n_gates: int
+    drift_hz_per_s: float | None
+
+
+@dataclass(frozen=True)
+class QualitySummary:
+    snr_db: float | None
+    sinad_db: float | None
+    thd_percent: float | None
+    thd_n_percent: float | None
+    enob_bits: float | None
+    sfdr_db: float | None
+    hum_hz: float | None
+    hum_db: float | None
+    filter: str
+
+
+@dataclass(frozen=True)
+class ClockSummary:
+    ppm: float
+    profile: str | None
+
+
+@dataclass(frozen=True)
+class Summary:
+    file: str
+    mode: str
+    sample_rate_hz: float
+    channels: int
+    duration_s: float
+    gate_s: float
+    clock: ClockSummary
+    level: LevelSummary
+    tone: ToneSummary
+    quality: QualitySummary
+    warnings: tuple[str, ...]
+
+    @property
+    def frequency_hz(self) -> float | None:
+        return self.tone.frequency_hz
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["warnings"] = list(self.warnings)
+        return d
+
+
+def _db(x: float) -> float:
+    return 10.0 * math.log10(x) if x > 0 else -math.inf
+
+
+class _LevelAccumulator:
+    def __init__(self, full_scale: float = 1.0):
+        self.n = 0
+        self.sum = 0.0
+        self.sum2 = 0.0
+        self.peak = 0.0
+        self.clipped = 0
+        self.full_scale = full_scale
+
+    def add(self, x: np.ndarray, clipped: int) -> None:
+        self.n += x.shape[0]
+        self.sum += float(x.sum())
+        self.sum2 += float(np.dot(x, x))
+        self.peak = max(self.peak, float(np.max(np.abs(x))) if x.size else 0.0)
+        self.clipped += int(clipped)
+
+    def summary(self) -> LevelSummary:
+        n = max(self.n, 1)
+        rms = math.sqrt(self.sum2 / n)
+        return LevelSummary(
+            rms_dbfs=_db((rms * math.sqrt(2.0) / self.full_scale) ** 2),
+            peak_dbfs=_db((self.peak / self.full_scale) ** 2),
+            clipped_samples=self.clipped,
+            dc_offset=self.sum / n,
+        )
+
+
+class AudioProcessor:
+    """`audio` mode: the counter, the level and the audio-quality meter on each gate."""
+
+    def __init__(self, meta: StreamMeta, settings: AnalysisSettings):
+        self.meta = meta
+        self.settings = settings
+        self.fs = meta.fs_hz
+        self._track_hz: float | None = None
+        self._track_snr: float | None = None
+        self._tones: list[tuple[float, dt.ToneEstimate, bool]] = []
+        self._qualities: list = []
+        self._levels = _LevelAccumulator()
+        self._sos = None
+        self._zi = None
+        if settings.filter != "none":
+            from dsp import filters
+
+            self._sos = filters.filter_sos(settings.filter, self.fs)
+            if self._sos is not None:
+                # start from rest: the first gate includes the filter's settling
+                self._zi = np.zeros((self._sos.shape[0], 2))
+        self.no_tone_gates = 0
+
+    def filtered(self, x: np.ndarray) -> np.ndarray:
+        """Stream the measurement filter (state kept across gates)."""
+        if self._sos is None:
+            return x
+        from scipy.signal import sosfilt
+
+        y, self._zi = sosfilt(self._sos, x, zi=self._zi)
+        return y
+
+    def _tone(self, x: np.ndarray) -> dt.ToneEstimate:
+        s = self.settings
+        band = s.band_hz
+        if band is not None:
+            band = (band[0], min(band[1], self.fs / 2))
+        if self._track_hz is not None:
+            est = dt.estimate_tone(x, self.fs, start_hz=self._track_hz)
+            bin_hz = self.fs / x.shape[0]
+            moved = abs(est.frequency_hz - self._track_hz) > 0.5 * bin_hz
+            lost = self._track_snr is not None and est.snr_db < self._track_snr - 6.0
+            outside = band is not None and not (band[0] <= est.frequency_hz <= band[1])
+            if not (moved or lost or outside):
+                return est
+        return dt.estimate_tone(x, self.fs, near_hz=s.near_hz, band_hz=band)
+
+    def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool) -> Reading:
+        s = self.settings
+        k = self.meta.clock_factor
+        lvl = dq.measure_level(x)
+        self._levels.add(x, lvl.clipped_samples)
+        xf = self.filtered(x)
+        gate_s = x.shape[0] / self.fs
+        freq = unc = amp = tsnr = None
+        qual = None
+        if lvl.rms_dbfs > SILENCE_DBFS:
+            est = self._tone(x)
+            if est.snr_db >= TONE_SNR_MIN_DB:
+                self._track_hz, self._track_snr = est.frequency_hz, est.snr_db
+                freq, unc = est.frequency_hz * k, est.uncertainty_hz * k
+                amp, tsnr = est.amplitude_dbfs, est.snr_db
+                self._tones.append((t_s, est, contiguous))
+                if 0 < est.frequency_hz < self.fs / 2:
+                    qual = dq.measure_quality(
+                        xf,
+                        self.fs,
+                        fundamental_hz=est.frequency_hz,
+                        n_harmonics=s.n_harmonics,
+                        mains=_mains_arg(s.mains),
+                    )
+                    self._qualities.append(qual)
+            else:
+                self._track_hz = None
+        if freq is None:
+            self.no_tone_gates += 1
+        return Reading(
+            t_s=t_s,
+            gate_s=gate_s,
+            frequency_hz=freq,
+            uncertainty_hz=unc,
+            amplitude_dbfs=amp,
+            tone_snr_db=tsnr,
+            rms_dbfs=lvl.rms_dbfs,
+            peak_dbfs=lvl.peak_dbfs,
+            clipped_samples=lvl.clipped_samples,
+            snr_db=None if qual is None else qual.snr_db,
+            sinad_db=None if qual is None else qual.sinad_db,
+            thd_percent=None if qual is None else qual.thd_percent,
+            thd_n_percent=None if qual is None else qual.thd_n_percent,
+            enob_bits=None if qual is None else qual.enob_bits,
+            sfdr_db=None if qual is None else qual.sfdr_db,
+            hum_db=None if qual is None else qual.hum_db,
+            contiguous=contiguous,
+            overflow=overflow,
+        )
+
+    def tone_summary(self) -> ToneSummary:
+        k = self.meta.clock_factor
+        if not self._tones:
+            return ToneSummary(None, None, None, None, None, 0, None)
+        t = [ts + e.t_ref_s for ts, e, _ in self._tones]
+        comb = dt.combine_gates(
+            t,
+            [e.frequency_hz for _, e, _ in self._tones],
+            [e.uncertainty_hz for _, e, _ in self._tones],
+            [e.phase_rad for _, e, _ in self._tones],
+            [e.phase_uncertainty_rad for _, e, _ in self._tones],
+            contiguous=[c for _, _, c in self._tones],
+        )
+        amps = [e.amplitude for _, e, _ in self._tones]
+        amp_rms = math.sqrt(float(np.mean(np.square(amps))))
+        drift = None
+        if len(self._tones) >= 3:
+            f = np.array([e.frequency_hz for _, e, _ in self._tones]) * k
+            drift = float(np.polyfit(np.asarray(t), f, 1)[0])
+        return ToneSummary(
+            frequency_hz=comb.frequency_hz * k,
+            uncertainty_hz=comb.uncertainty_hz * k,
+            amplitude_dbfs=20.0 * math.log10(amp_rms) if amp_rms > 0 else -math.inf,
+            method=comb.method,
+            birge_ratio=comb.birge_ratio,
+            n_gates=comb.n_gates,
+            drift_hz_per_s=drift,
+        )
+
+    def quality_summary(self) -> QualitySummary:
+        if not self._qualities:
+            return QualitySummary(None, None, None, None, None, None, None, None, self.settings.filter)
+        q = dq.combine_quality(self._qualities)
+        return QualitySummary(
+            snr_db=q.snr_db,
+            sinad_db=q.sinad_db,
+            thd_percent=q.thd_percent,
+            thd_n_percent=q.thd_n_percent,
+            enob_bits=q.enob_bits,
+            sfdr_db=q.sfdr_db,
+            hum_hz=q.hum_hz,
+            hum_db=q.hum_db,
+            filter=self.settings.filter,
+        )
+
+
+def _mains_arg(mains: str):
+    if mains == "auto":
+        return "auto"
+    if mains in ("none", "off"):
+        return None
+    return int(mains)
+
+
+class Engine:
+    """Turns a stream of blocks into readings (one per gate) and a summary.
+
+    Parameters
+    ----------
+    meta : StreamMeta
+        The stream's metadata (sample rate, mode, clock correction, ...).
+    settings : AnalysisSettings
+    on_reading : callable, optional
+        Called with each Reading as soon as its gate is complete (live path).
+    """
+
+    def __init__(
+        self,
+        meta: StreamMeta,
+        settings: AnalysisSettings | None = None,
+        *,
+        on_reading: Callable[[Reading], None] | None = None,
+        keep_readings: bool = True,
+    ):
+        self.meta = meta
+        self.settings = settings or AnalysisSettings(mode=meta.mode)
+        self.on_reading = on_reading
+        self.keep_readings = keep_readings
+        self.readings: list[Reading] = []
+        self.gate_n = max(16, int(round(self.settings.gate_s * meta.fs_hz)))
+        dtype = np.complex128 if meta.mode == "iq" else np.float64
+        self._buf = np.empty(self.gate_n, dtype=dtype)
+        self._fill = 0
+        self._gate_start = 0  # stream index of the buffer's first sample
+        self._next = 0  # stream index expected next
+        self._contiguous = True
+        self._overflow = False
+        self.frames = 0
+        self.warnings: list[str] = []
+        self.processor = self._make_processor()
+
+    def _make_processor(self):
+        mode = self.meta.mode
+        if mode == "audio":
+            return AudioProcessor(self.meta, self.settings)
+        from monitor import fm_engine
+
+        return fm_engine.make_processor(self.meta, self.settings)
+
+    def feed(self, block: Block) -> list[Reading]:
+        """Add a block; returns the readings of the gates it completed."""
+        out: list[Reading] = []
+        x = block.samples
+        if block.start != self._next:
+            # Samples were lost (or the stream restarted): drop the partial gate, and
+            # mark the next gate so the phase is not followed across the gap.
+            if self._fill:
+                self._fill = 0
+            self._contiguous = False
+            self._gate_start = block.start
+        if block.overflow:
+            self._overflow = True
+            self._contiguous = False
+        self._next = block.start + x.shape[0]
+        self.frames += x.shape[0]
+        pos = 0
+        while pos < x.shape[0]:
+            if self._fill == 0:
+                self._gate_start = block.start + pos
+            take = min(self.gate_n - self._fill, x.shape[0] - pos)
+            self._buf[self._fill : self._fill + take] = x[pos : pos + take]
+            self._fill += take
+            pos += take
+            if self._fill == self.gate_n:
+                out.append(self._emit(self._buf))
+                self._fill = 0
+        return out
+
+    def _emit(self, gate: np.ndarray) -> Reading:
+        r = self.processor.process(
+            gate, self._gate_start / self.meta.fs_hz, self._contiguous, self._overflow
+        )
+        self._contiguous = True
+        self._overflow = False
+        if self.keep_readings:
+            self.readings.append(r)
+        if self.on_reading is not None:
+            self.on_reading(r)
+        return r
+
+    def finish(self) -> list[Reading]:
+        """Process the partial last gate if it is long enough (half a gate, or the only
+        data there is)."""
+        out = []
+        if self._fill and (self._fill >= self.gate_n // 2 or not self.readings):
+            if self._fill >= 16:
+                out.append(self._emit(self._buf[: self._fill].copy()))
+        self._fill = 0
+        return out
+
+    def summary(self, extra_warnings: Iterable[str] = ()) -> Summary:
+        p = self.processor
+        level = p._levels.summary()
+        warnings = list(extra_warnings) + list(self.warnings)
+        if level.clipped_samples:
+            warnings.append(
+                f"clipping: {level.clipped_samples} samples at or near full scale; "
+                "lower the input level"
+            )
+        if abs(level.dc_offset) > DC_WARN_FRACTION:
+            warnings.append(f"DC offset of {level.dc_offset:+.3f} of full scale")
+        if level.rms_dbfs <= SILENCE_DBFS:
+            warnings.append("silence: no signal above the noise of the converter")
+        elif level.rms_dbfs < LOW_LEVEL_DBFS:
+            warnings.append(
+                f"very low level ({level.rms_dbfs:.1f} dBFS): raise the input level"
+            )
+        n_read = len(self.readings)
+        if getattr(p, "no_tone_gates", 0):
+            warnings.append(f"{p.no_tone_gates} of {n_read} gates held no usable tone")
+        extra = getattr(p, "summary_warnings", None)
+        if extra:
+            warnings.extend(extra())
+        return Summary(
+            file=self.meta.source,
+            mode=self.meta.mode,
+            sample_rate_hz=self.meta.fs_hz,
+            channels=self.meta.channels,
+            duration_s=self.frames / self.meta.fs_hz,
+            gate_s=self.settings.gate_s,
+            clock=ClockSummary(ppm=self.meta.clock_ppm, profile=self.meta.profile),
+            level=level,
+            tone=p.tone_summary(),
+            quality=p.quality_summary(),
+            warnings=tuple(warnings),
+        )
+
+
+@dataclass
+class Analysis:
+    """The result of running a whole source through the engine."""
+
+    meta: StreamMeta
+    readings: list[Reading]
+    summary: Summary
+    extra: dict = field(default_factory=dict)
+
+
+def run(
+    source,
+    settings: AnalysisSettings | None = None,
+    *,
+    progress: Callable[[int, int | None], None] | None = None,
+    on_reading: Callable[[Reading], None] | None = None,
+) -> Analysis:
+    """Run every block of `source` through one engine."""
+    engine = Engine(source.meta, settings, on_reading=on_reading)
+    for block in source:
+        engine.feed(block)
+        if progress is not None:
+            progress(engine.frames, source.meta.frames)
+    engine.finish()
+    summary = engine.summary(extra_warnings=source.warnings)
+    return Analysis(source.meta, engine.readings, summary)
+
+
+def analyze_file(
+    path,
+    *,
+    settings: AnalysisSettings | None = None,
+    mode: str = "audio",
+    gate_s: float = 1.0,
+    clock_ppm: float | None = None,
+    channel: int = 0,
+    mix: bool = False,
+    swap_iq: bool = False,
+    meta: dict | None = None,
+    progress: Callable[[int, int | None], None] | None = None,
+) -> Analysis:
+    """Analyse one recording (WAV/RF64/W64/SigMF) and return readings and summary."""
+    from monitor.sources import open_source
+
+    if settings is None:
+        settings = AnalysisSettings(mode=mode, gate_s=gate_s)
+    fields_ = dict(meta or {})
+    if clock_ppm is not None:
+        fields_["clock_ppm"] = float(clock_ppm)
+    with open_source(
+        path,
+        mode=settings.mode,
+        channel=channel,
+        mix=mix,
+        swap_iq=swap_iq,
+        meta=fields_,
+    ) as src:
+        return run(src, settings, progress=progress)
