@@ -502,9 +502,7 @@ def combine_gates(
         birge_mean = math.sqrt(chi2_mean / (n_ok - 1))
     else:
         birge_mean = 1.0
-    mean_result = GateCombination(
-        f_mean, s_mean * max(1.0, birge_mean), "mean", birge_mean, k
-    )
+    mean_result = GateCombination(f_mean, s_mean * max(1.0, birge_mean), "mean", birge_mean, k)
     if k == 1:
         return mean_result
     if not np.all(ok) or not np.all(np.isfinite(ph)) or not np.all(sp < 0.5):

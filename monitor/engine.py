@@ -306,7 +306,9 @@ class AudioProcessor:
 
     def quality_summary(self) -> QualitySummary:
         if not self._qualities:
-            return QualitySummary(None, None, None, None, None, None, None, None, self.settings.filter)
+            return QualitySummary(
+                None, None, None, None, None, None, None, None, self.settings.filter
+            )
         q = dq.combine_quality(self._qualities)
         return QualitySummary(
             snr_db=q.snr_db,
@@ -439,9 +441,7 @@ class Engine:
         if level.rms_dbfs <= SILENCE_DBFS:
             warnings.append("silence: no signal above the noise of the converter")
         elif level.rms_dbfs < LOW_LEVEL_DBFS:
-            warnings.append(
-                f"very low level ({level.rms_dbfs:.1f} dBFS): raise the input level"
-            )
+            warnings.append(f"very low level ({level.rms_dbfs:.1f} dBFS): raise the input level")
         n_read = len(self.readings)
         if getattr(p, "no_tone_gates", 0):
             warnings.append(f"{p.no_tone_gates} of {n_read} gates held no usable tone")

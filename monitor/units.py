@@ -7,7 +7,9 @@ import math
 import re
 
 _SUFFIX = {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
-_FREQ_RE = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([kKMG]?)\s*(?:Hz|hz)?\s*$")
+_FREQ_RE = re.compile(
+    r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([kKMG]?)\s*(?:Hz|hz)?\s*$"
+)
 
 
 def parse_frequency(text: str) -> float:

@@ -1,0 +1,228 @@
+"""`swingmeter analyze`: readings and a summary of recordings."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from monitor.blocks import MODES
+from monitor.errors import InputError
+from monitor.units import positive_frequency_arg
+
+HELP = "measure recordings: frequency with uncertainty, level, audio quality"
+EPILOG = """\
+examples:
+  swingmeter analyze tone.wav
+  swingmeter analyze tone.wav --near 1000 --gate 0.5 --readings --json
+  swingmeter analyze rx-audio.wav --filter psophometric --csv readings.csv
+  swingmeter analyze ref-1khz.wav --profile bench-a
+"""
+
+FILTER_CHOICES = (
+    "none",
+    "300-3000",
+    "20-15k",
+    "a-weight",
+    "psophometric",
+    "c-message",
+    "deemph-50us",
+    "deemph-75us",
+)
+
+
+def add_input_options(p: argparse.ArgumentParser) -> None:
+    """Options that say how to read a stream (shared with `live`)."""
+    p.add_argument(
+        "--mode",
+        choices=MODES,
+        default="audio",
+        help="audio: a receiver's demodulated audio; beat: the carrier as an audio beat "
+        "note; iq: stereo I/Q (default: audio)",
+    )
+    p.add_argument(
+        "--channel",
+        type=int,
+        default=0,
+        metavar="N",
+        help="channel to read in audio/beat mode, from 0 (default: 0)",
+    )
+    p.add_argument("--mix", action="store_true", help="use the mean of all channels")
+    p.add_argument("--swap-iq", action="store_true", help="I/Q files: left is Q, right is I")
+    clock = p.add_mutually_exclusive_group()
+    clock.add_argument(
+        "--clock-ppm",
+        type=float,
+        default=None,
+        metavar="P",
+        help="sound-card clock correction in ppm, P = (true rate / nominal - 1) * 1e6; "
+        "frequencies are multiplied by (1 + P*1e-6) (default: 0, or the bench profile)",
+    )
+    clock.add_argument(
+        "--profile",
+        metavar="NAME",
+        help="apply the bench profile NAME (see `swingmeter calibrate`)",
+    )
+
+
+def add_measure_options(p: argparse.ArgumentParser) -> None:
+    """Options that say what to measure (shared with `live`)."""
+    p.add_argument(
+        "--gate",
+        type=float,
+        default=1.0,
+        metavar="S",
+        help="gate time in seconds, 0.1 to 100: one reading per gate (default: 1)",
+    )
+    p.add_argument(
+        "--near",
+        type=positive_frequency_arg,
+        metavar="HZ",
+        help="measure the tone nearest to HZ instead of the strongest",
+    )
+    p.add_argument(
+        "--band",
+        type=positive_frequency_arg,
+        nargs=2,
+        metavar=("LO", "HI"),
+        help="measure the strongest tone between LO and HI Hz",
+    )
+    p.add_argument(
+        "--filter",
+        choices=FILTER_CHOICES,
+        default="none",
+        help="measurement filter before the quality figures (default: none)",
+    )
+    p.add_argument(
+        "--mains",
+        choices=("auto", "50", "60", "none"),
+        default="auto",
+        help="mains frequency for the hum figure (default: auto)",
+    )
+
+
+def add_parser(sub) -> argparse.ArgumentParser:
+    p = sub.add_parser(
+        "analyze",
+        help=HELP,
+        description="Measure recordings (WAV, RF64, W64, SigMF): the tone's frequency with "
+        "its 1-sigma uncertainty, level and audio quality, per gate and for the record.",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("files", nargs="+", metavar="FILE", help="recordings to analyse")
+    add_input_options(p)
+    add_measure_options(p)
+    p.add_argument("--readings", action="store_true", help="include every gate's reading")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.add_argument("--csv", metavar="PATH", help="write the readings to PATH as CSV")
+    return p
+
+
+def settings_from_args(args):
+    from monitor.engine import AnalysisSettings
+
+    try:
+        return AnalysisSettings(
+            mode=args.mode,
+            gate_s=args.gate,
+            near_hz=args.near,
+            band_hz=tuple(args.band) if args.band else None,
+            filter=args.filter,
+            mains=args.mains,
+        )
+    except ValueError as exc:
+        raise InputError(str(exc)) from None
+
+
+def meta_from_args(args) -> dict:
+    """StreamMeta fields the user gave (clock correction or a bench profile)."""
+    fields: dict = {}
+    if getattr(args, "profile", None):
+        from monitor import profiles
+
+        prof = profiles.load(args.profile)
+        fields["clock_ppm"] = float(prof.get("clock_ppm", 0.0))
+        fields["profile"] = args.profile
+    elif getattr(args, "clock_ppm", None) is not None:
+        fields["clock_ppm"] = args.clock_ppm
+    return fields
+
+
+def analyze_one(path: str, args, settings, progress=None):
+    from monitor.engine import analyze_file
+
+    return analyze_file(
+        path,
+        settings=settings,
+        channel=args.channel,
+        mix=args.mix,
+        swap_iq=args.swap_iq,
+        meta=meta_from_args(args),
+        progress=progress,
+    )
+
+
+def _progress_factory(console):
+    """A rich progress bar on stderr, only when stderr is a terminal."""
+    if not sys.stderr.isatty():
+        return None, None
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+    prog = Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        TextColumn("{task.percentage:>3.0f}%"),
+        TimeRemainingColumn(),
+        console=console,
+        transient=True,
+    )
+    return prog, prog
+
+
+def run(args) -> int:
+    from rich.console import Console
+
+    from monitor import output, render
+
+    settings = settings_from_args(args)
+    err = Console(stderr=True)
+    results = []
+    prog, _ = _progress_factory(err)
+    for path in args.files:
+        if prog is not None:
+            with prog:
+                task = prog.add_task(path, total=None)
+
+                def cb(done, total, _t=task):
+                    prog.update(_t, completed=done, total=total)
+
+                analysis = analyze_one(path, args, settings, progress=cb)
+        else:
+            analysis = analyze_one(path, args, settings)
+        results.append(analysis)
+
+    dicts = []
+    for a in results:
+        d = a.summary.to_dict()
+        d.update(a.extra)
+        if args.readings:
+            d["readings"] = [r.to_dict() for r in a.readings]
+        dicts.append(d)
+
+    if args.csv:
+        rows = [{"file": a.meta.source, **r.to_dict()} for a in results for r in a.readings]
+        columns: list[str] = []
+        for row in rows:
+            columns.extend(k for k in row if k not in columns)
+        output.write_csv(args.csv, rows, columns or ["file", "t_s", "frequency_hz"])
+
+    if args.json:
+        print(output.dumps(dicts[0] if len(dicts) == 1 else dicts))
+        return 0
+    out = Console()
+    for d, a in zip(dicts, results):
+        out.print(render.summary_table(output.clean(d)))
+        if args.readings:
+            out.print(render.readings_table([output.clean(r.to_dict()) for r in a.readings]))
+        out.print()
+    return 0
