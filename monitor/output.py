@@ -36,7 +36,7 @@ def dumps(obj) -> str:
 def write_csv(path: str | Path, rows: Iterable[dict], columns: Sequence[str]) -> int:
     """Write rows (dicts) with a header row; missing values are empty cells."""
     try:
-        f = open(path, "w", newline="", encoding="utf-8")  # noqa: SIM115
+        f = open(path, "w", newline="", encoding="utf-8")
     except OSError as exc:
         raise InputError(f"{path}: cannot write CSV ({exc.strerror or exc})") from None
     n = 0

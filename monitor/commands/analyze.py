@@ -220,7 +220,7 @@ def run(args) -> int:
         print(output.dumps(dicts[0] if len(dicts) == 1 else dicts))
         return 0
     out = Console()
-    for d, a in zip(dicts, results):
+    for d, a in zip(dicts, results, strict=True):
         out.print(render.summary_table(output.clean(d)))
         if args.readings:
             out.print(render.readings_table([output.clean(r.to_dict()) for r in a.readings]))
