@@ -1,0 +1,1141 @@
+"""Frequency stability of a run of counter readings: drift, warm-up and the Allan family.
+
+The readings are per-gate mean frequencies over contiguous gates of length tau0 (the gate
+time): the readings of an averaging (Pi-type) counter. Everything here works on plain
+arrays of reading times and frequencies so that the command line and a live window can
+call the same functions on a growing list of readings; each call is O(n) in the number of
+readings (a day at 10 readings/s takes about a second).
+
+Gaps (a reading interval much longer than tau0, or a reading without a frequency) are
+found and reported, never bridged by interpolation: the Allan family is computed on each
+contiguous segment and the segments are pooled term by term.
+
+References
+----------
+.. [1] W. J. Riley, "Handbook of Frequency Stability Analysis", NIST Special
+   Publication 1065 (2008): Allan, overlapping Allan, modified Allan and time deviation
+   (sections 5.2.2-5.2.6), confidence intervals (5.3), noise types and slopes (5.2.1,
+   Table 5), drift and its Allan signature D*tau/sqrt(2) (5.2.1, 6.4).
+.. [2] IEEE Std 1139-2008, Definitions of physical quantities for fundamental frequency
+   and time metrology.
+.. [3] E. Rubiola, "On the measurement of frequency and of its sample variance with
+   high-resolution counters", Rev. Sci. Instrum. 76, 054703 (2005): Pi- and Lambda-type
+   counters; overlapped averaging turns the Allan variance into the modified one.
+.. [4] C. A. Greenhall and W. J. Riley, "Uncertainty of stability variances based on
+   finite differences", 35th PTTI meeting (2003): equivalent degrees of freedom, as
+   implemented in allantools.edf_greenhall.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings as _warnings
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+
+__all__ = [
+    "INTERPRETATION",
+    "NOISE_SLOPES",
+    "AllanCurve",
+    "DriftFit",
+    "NoiseHint",
+    "RateCurve",
+    "ReadingCheck",
+    "StabilityResult",
+    "Warmup",
+    "allan_family",
+    "analyze_stability",
+    "check_readings",
+    "drift_rate_curve",
+    "fit_drift",
+    "fractional_frequency",
+    "lag1_noise_alpha",
+    "noise_hint",
+    "octave_factors",
+    "warmup_time",
+]
+
+#: Slope mu of sigma_y(tau) ~ tau^mu per power-law noise type (NIST SP 1065, Table 5 [1]);
+#: the second number is the slope of MDEV, which separates white from flicker PM.
+NOISE_SLOPES: dict[str, tuple[float, float]] = {
+    "white PM": (-1.0, -1.5),
+    "flicker PM": (-1.0, -1.0),
+    "white FM": (-0.5, -0.5),
+    "flicker FM": (0.0, 0.0),
+    "random-walk FM": (0.5, 0.5),
+    "linear drift": (1.0, 1.0),
+}
+
+#: What the figures mean and which one to quote. Shown by the command line and the README.
+INTERPRETATION = (
+    "Each reading is the mean frequency over one gate of length tau0 (the gate time), the "
+    "gates following one another without dead time: the readings of an averaging "
+    "(Pi-type) counter. That is the quantity the Allan variance is defined on, so OADEV at "
+    "tau = m*tau0 is the standard estimator, and averaging m readings gives the mean over "
+    "m*tau0. Quote OADEV at a stated tau with its confidence interval and the gate time "
+    "(it uses every reading and has the tightest interval of the three). ADEV at tau0 "
+    "depends on how the counter weights the phase inside a gate and on its bandwidth "
+    "(about 1/(2*tau0)): for white or flicker PM it is not the figure that instantaneous "
+    "phase samples (or a counter of another type, or another gate time) give at the same "
+    "tau, so compare short-tau figures only at the same gate time and counter type. Both "
+    "white and flicker PM give an ADEV slope near tau^-1; MDEV separates them (tau^-3/2 "
+    "versus tau^-1) and TDEV = tau*MDEV/sqrt(3) is the time (phase) stability in seconds. "
+    "Every reading also carries the sound card's clock: measure that floor on a reference "
+    "tone (--reference) and trust only figures well above it."
+)
+
+_CI_ONE_SIGMA = math.erf(1.0 / math.sqrt(2.0))
+
+
+@dataclass(frozen=True)
+class ReadingCheck:
+    """Regularity of a run of readings.
+
+    Attributes
+    ----------
+    count : int
+        Readings given (with or without a frequency).
+    usable_count : int
+        Readings with a finite frequency.
+    tau0_s : float
+        Reading interval: the given gate time or the median interval between readings.
+    missing_count : int
+        Readings given without a finite frequency (treated as gaps).
+    gap_count : int
+        Breaks in the run: intervals longer than 1.5*tau0 and missing readings.
+    skipped_estimate : int
+        Readings that would have filled the gaps at one per tau0.
+    gaps_s : tuple of (float, float)
+        (last time before, first time after) of each break, first 50.
+    segments : tuple of (int, int)
+        Index ranges [start, stop) of contiguous usable readings, into the usable readings.
+    jitter_fraction : float
+        Largest |interval - tau0| / tau0 inside the segments.
+    warnings : tuple of str
+        What is doubtful about the run, in words.
+    """
+
+    count: int
+    usable_count: int
+    tau0_s: float
+    missing_count: int
+    gap_count: int
+    skipped_estimate: int
+    gaps_s: tuple[tuple[float, float], ...]
+    segments: tuple[tuple[int, int], ...]
+    jitter_fraction: float
+    warnings: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class DriftFit:
+    """Linear and quadratic fits of frequency against time.
+
+    Attributes
+    ----------
+    nominal_hz : float
+        Frequency the ppm figures refer to.
+    duration_s : float
+        Time from the first to the last reading.
+    hz_per_s : float
+        Slope of the linear fit.
+    ppm_per_min : float
+        The same slope in parts per million of `nominal_hz` per minute.
+    linear_mid_hz : float
+        Linear fit's value at mid-record.
+    linear_residual_rms_hz : float
+        RMS of readings minus the linear fit.
+    quadratic_hz_per_s2 : float
+        Second-order coefficient c of f = a + b*t + c*t^2 (so df/dt changes by 2c per s).
+    quadratic_start_hz_per_s, quadratic_end_hz_per_s : float
+        Drift rate of the quadratic fit at the first and the last reading.
+    quadratic_residual_rms_hz : float
+        RMS of readings minus the quadratic fit.
+    linear_change_hz : float
+        hz_per_s * duration_s: the change the linear drift makes over the record.
+    excursion_hz : float
+        Largest minus smallest reading (total excursion).
+    excursion_ppm : float
+        The same in ppm of `nominal_hz`.
+    """
+
+    nominal_hz: float
+    duration_s: float
+    hz_per_s: float
+    ppm_per_min: float
+    linear_mid_hz: float
+    linear_residual_rms_hz: float
+    quadratic_hz_per_s2: float
+    quadratic_start_hz_per_s: float
+    quadratic_end_hz_per_s: float
+    quadratic_residual_rms_hz: float
+    linear_change_hz: float
+    excursion_hz: float
+    excursion_ppm: float
+
+
+@dataclass(frozen=True)
+class RateCurve:
+    """Local drift rate from least-squares lines over a sliding window.
+
+    Attributes
+    ----------
+    t_s : numpy.ndarray
+        Window centres.
+    hz_per_s : numpy.ndarray
+        Local slope; NaN where the window holds too few readings.
+    ppm_per_min : numpy.ndarray
+        The same in ppm of the nominal frequency per minute.
+    window_s : float
+        Window length.
+    """
+
+    t_s: np.ndarray
+    hz_per_s: np.ndarray
+    ppm_per_min: np.ndarray
+    window_s: float
+
+
+@dataclass(frozen=True)
+class Warmup:
+    """When the drift rate first stays below a threshold.
+
+    Attributes
+    ----------
+    warmup_s : float or None
+        Time after the first reading from which the local drift rate stays below the
+        threshold to the end of the record; None if it never does.
+    settled_at_t_s : float or None
+        The same as a reading time (`t_s` scale).
+    threshold_ppm_per_min : float
+        The threshold.
+    window_s : float
+        Length of the window the local rate is fitted over.
+    final_ppm_per_min : float
+        Local rate in the last full window (NaN if none).
+    """
+
+    warmup_s: float | None
+    settled_at_t_s: float | None
+    threshold_ppm_per_min: float
+    window_s: float
+    final_ppm_per_min: float
+
+
+@dataclass(frozen=True)
+class AllanCurve:
+    """One deviation of the Allan family against tau, with confidence intervals.
+
+    Attributes
+    ----------
+    kind : {"adev", "oadev", "mdev", "tdev"}
+        Which deviation. `tdev` values are in seconds, the others are fractional.
+    taus_s : tuple of float
+        Averaging times m*tau0.
+    values, lower, upper : tuple of float
+        The deviation and its confidence interval (chi-squared with Greenhall's
+        equivalent degrees of freedom [4]).
+    edf : tuple of float
+        Equivalent degrees of freedom per tau (summed over segments).
+    n_terms : tuple of int
+        Number of squared differences per tau (summed over segments).
+    alpha : tuple of int
+        Power-law exponent of the noise assumed for the interval at each tau.
+    confidence : float
+        Two-sided probability of the interval (0.683 = one sigma).
+    """
+
+    kind: str
+    taus_s: tuple[float, ...]
+    values: tuple[float, ...]
+    lower: tuple[float, ...]
+    upper: tuple[float, ...]
+    edf: tuple[float, ...]
+    n_terms: tuple[int, ...]
+    alpha: tuple[int, ...]
+    confidence: float
+
+
+@dataclass(frozen=True)
+class NoiseHint:
+    """The noise type the slopes point to (NIST SP 1065, Table 5 [1]).
+
+    Attributes
+    ----------
+    noise_type : str
+        One of the keys of `NOISE_SLOPES`, or "unknown" if there are too few taus.
+    adev_slope, mdev_slope : float
+        Least-squares slopes of log OADEV and log MDEV against log tau (NaN if unknown).
+    explanation : str
+        The rule that gave the answer, in words.
+    per_tau : tuple of (float, str)
+        Local noise type between each tau and the next octave (from the local slopes).
+    """
+
+    noise_type: str
+    adev_slope: float
+    mdev_slope: float
+    explanation: str
+    per_tau: tuple[tuple[float, str], ...]
+
+
+@dataclass(frozen=True)
+class StabilityResult:
+    """Everything `analyze_stability` computes.
+
+    Attributes
+    ----------
+    check : ReadingCheck
+    drift : DriftFit
+        Fitted over the whole record.
+    warmup : Warmup
+    span_s : (float, float)
+        Reading times the Allan family was computed over.
+    nominal_hz : float
+    adev : AllanCurve
+        Overlapping Allan deviation (the one to quote).
+    adev_nonoverlapping : AllanCurve
+        Plain (non-overlapping) Allan deviation.
+    mdev, tdev : AllanCurve
+    noise : NoiseHint
+    warnings : tuple of str
+    """
+
+    check: ReadingCheck
+    drift: DriftFit
+    warmup: Warmup
+    span_s: tuple[float, float]
+    nominal_hz: float
+    adev: AllanCurve
+    adev_nonoverlapping: AllanCurve
+    mdev: AllanCurve
+    tdev: AllanCurve
+    noise: NoiseHint
+    warnings: tuple[str, ...]
+
+
+# ---------------------------------------------------------------------------------------
+# input normalisation
+
+
+def _as_readings(t_s, frequency_hz) -> tuple[np.ndarray, np.ndarray]:
+    try:
+        t = np.asarray(t_s, dtype=float).ravel()
+        f = np.asarray(frequency_hz, dtype=float).ravel()
+    except (TypeError, ValueError) as exc:
+        raise TypeError(f"t_s and frequency_hz must be sequences of numbers: {exc}") from None
+    if t.shape != f.shape:
+        raise ValueError(
+            f"t_s and frequency_hz must have the same length, got {t.size} and {f.size}"
+        )
+    if not np.all(np.isfinite(t)):
+        raise ValueError("t_s must be finite (a reading without a time cannot be placed)")
+    if t.size > 1 and np.any(np.diff(t) <= 0):
+        raise ValueError("t_s must be strictly increasing (sort the readings, drop repeats)")
+    return t, f
+
+
+def _usable(t: np.ndarray, f: np.ndarray, need: int, what: str) -> tuple[np.ndarray, np.ndarray]:
+    ok = np.isfinite(f)
+    if int(ok.sum()) < need:
+        raise ValueError(f"{what} needs at least {need} readings with a frequency, got {ok.sum()}")
+    return t[ok], f[ok]
+
+
+def _check_positive(name: str, value: float | None) -> None:
+    if value is not None and not (math.isfinite(value) and value > 0):
+        raise ValueError(f"{name}={value} must be a positive finite number")
+
+
+def fractional_frequency(frequency_hz, nominal_hz: float) -> np.ndarray:
+    """Fractional frequency y = f / nominal - 1.
+
+    Parameters
+    ----------
+    frequency_hz : array_like
+        Readings, Hz.
+    nominal_hz : float
+        Nominal frequency, Hz.
+
+    Returns
+    -------
+    numpy.ndarray
+        y, dimensionless.
+
+    Raises
+    ------
+    ValueError
+        If `nominal_hz` is not positive.
+    """
+    _check_positive("nominal_hz", nominal_hz)
+    return np.asarray(frequency_hz, dtype=float) / nominal_hz - 1.0
+
+
+# ---------------------------------------------------------------------------------------
+# regularity
+
+
+def check_readings(t_s, frequency_hz, *, tau0_s: float | None = None) -> ReadingCheck:
+    """Find the reading interval, gaps, missing readings and irregular spacing.
+
+    Parameters
+    ----------
+    t_s : array_like
+        Reading times, s, strictly increasing.
+    frequency_hz : array_like
+        Readings, Hz; NaN marks a reading without a frequency (a gap).
+    tau0_s : float, optional
+        Gate time. Default: the median interval between consecutive readings.
+
+    Returns
+    -------
+    ReadingCheck
+
+    Raises
+    ------
+    ValueError
+        Mismatched lengths, non-increasing or non-finite times, fewer than two usable
+        readings, or a non-positive `tau0_s`.
+    """
+    t, f = _as_readings(t_s, frequency_hz)
+    _check_positive("tau0_s", tau0_s)
+    ok = np.isfinite(f)
+    tu = t[ok]
+    if tu.size < 2:
+        raise ValueError(f"need at least 2 readings with a frequency, got {tu.size}")
+    if tau0_s is None:
+        tau0_s = float(np.median(np.diff(t)))
+    dt = np.diff(tu)
+    # A break is either a long interval or a missing reading between two usable ones.
+    missing_before = np.cumsum(~ok)[ok]
+    hole = np.diff(missing_before) > 0
+    long = dt > 1.5 * tau0_s
+    brk = long | hole
+    starts = np.concatenate(([0], np.nonzero(brk)[0] + 1))
+    stops = np.concatenate((np.nonzero(brk)[0] + 1, [tu.size]))
+    segments = tuple((int(a), int(b)) for a, b in zip(starts, stops, strict=True))
+    inside = dt[~brk]
+    jitter = float(np.max(np.abs(inside - tau0_s)) / tau0_s) if inside.size else 0.0
+    skipped = int(np.sum(np.maximum(np.rint(dt[brk] / tau0_s) - 1, 0)))
+    gaps = tuple((float(tu[i]), float(tu[i + 1])) for i in np.nonzero(brk)[0][:50])
+    missing = int((~ok).sum())
+    notes = []
+    if missing:
+        notes.append(f"{missing} readings have no frequency; they are treated as gaps")
+    if brk.any():
+        notes.append(
+            f"{int(brk.sum())} gaps in the readings (about {skipped} readings missing at "
+            f"tau0={tau0_s:g} s); the Allan family is pooled over {len(segments)} contiguous "
+            "segments, nothing is interpolated"
+        )
+    if jitter > 0.01:
+        notes.append(
+            f"irregular reading intervals: up to {100 * jitter:.1f}% away from "
+            f"tau0={tau0_s:g} s; readings are treated as equally spaced within a segment"
+        )
+    return ReadingCheck(
+        count=int(t.size),
+        usable_count=int(tu.size),
+        tau0_s=float(tau0_s),
+        missing_count=missing,
+        gap_count=int(brk.sum()),
+        skipped_estimate=skipped,
+        gaps_s=gaps,
+        segments=segments,
+        jitter_fraction=jitter,
+        warnings=tuple(notes),
+    )
+
+
+# ---------------------------------------------------------------------------------------
+# drift
+
+
+def fit_drift(t_s, frequency_hz, *, nominal_hz: float | None = None) -> DriftFit:
+    """Fit f(t) with a straight line and with a parabola (ordinary least squares).
+
+    Parameters
+    ----------
+    t_s : array_like
+        Reading times, s, strictly increasing.
+    frequency_hz : array_like
+        Readings, Hz; NaN readings are left out.
+    nominal_hz : float, optional
+        Frequency for the ppm figures. Default: the median reading.
+
+    Returns
+    -------
+    DriftFit
+
+    Raises
+    ------
+    ValueError
+        Fewer than three usable readings, or a non-positive `nominal_hz`.
+
+    References
+    ----------
+    NIST SP 1065 [1], section 6.4 (frequency drift by a linear fit to frequency data).
+    """
+    t, f = _usable(*_as_readings(t_s, frequency_hz), 3, "fit_drift")
+    if nominal_hz is None:
+        nominal_hz = float(np.median(f))
+    _check_positive("nominal_hz", nominal_hz)
+    # Centre and scale time and frequency so that a day of readings near 100 MHz keeps
+    # its digits through the normal equations.
+    tm = 0.5 * (t[0] + t[-1])
+    half = max(0.5 * (t[-1] - t[0]), 1e-300)
+    x = (t - tm) / half
+    fr = float(np.median(f))
+    y = f - fr
+    c1 = np.polynomial.polynomial.polyfit(x, y, 1)
+    c2 = np.polynomial.polynomial.polyfit(x, y, 2)
+    r1 = y - np.polynomial.polynomial.polyval(x, c1)
+    r2 = y - np.polynomial.polynomial.polyval(x, c2)
+    slope = float(c1[1] / half)
+    a2 = float(c2[2] / half**2)
+    b_mid = float(c2[1] / half)
+    duration = float(t[-1] - t[0])
+    exc = float(np.max(f) - np.min(f))
+    return DriftFit(
+        nominal_hz=float(nominal_hz),
+        duration_s=duration,
+        hz_per_s=slope,
+        ppm_per_min=slope * 60.0 / nominal_hz * 1e6,
+        linear_mid_hz=float(fr + c1[0]),
+        linear_residual_rms_hz=float(np.sqrt(np.mean(r1**2))),
+        quadratic_hz_per_s2=a2,
+        quadratic_start_hz_per_s=b_mid - 2 * a2 * 0.5 * duration,
+        quadratic_end_hz_per_s=b_mid + 2 * a2 * 0.5 * duration,
+        quadratic_residual_rms_hz=float(np.sqrt(np.mean(r2**2))),
+        linear_change_hz=slope * duration,
+        excursion_hz=exc,
+        excursion_ppm=exc / nominal_hz * 1e6,
+    )
+
+
+_RATE_BINS = 8  # sub-bins per window: the rate curve is stepped by window/8
+
+
+def drift_rate_curve(
+    t_s, frequency_hz, *, window_s: float, nominal_hz: float | None = None
+) -> RateCurve:
+    """Local drift rate: least-squares slope over a window slid in steps of window/8.
+
+    Readings are summed into bins of window/8 (sums taken about each bin's centre, so no
+    digits are lost on long records); each window's slope is then assembled from eight
+    bins, exactly as a direct fit of the readings in that window. O(n).
+
+    Parameters
+    ----------
+    t_s : array_like
+        Reading times, s, strictly increasing.
+    frequency_hz : array_like
+        Readings, Hz; NaN readings are left out.
+    window_s : float
+        Window length, s.
+    nominal_hz : float, optional
+        Frequency for the ppm figures. Default: the median reading.
+
+    Returns
+    -------
+    RateCurve
+        NaN where a window's first or last quarter holds no reading, or it holds fewer
+        than three readings: a slope across a gap is not estimated.
+
+    Raises
+    ------
+    ValueError
+        Non-positive `window_s` or `nominal_hz`, fewer than three usable readings.
+    """
+    _check_positive("window_s", window_s)
+    t, f = _usable(*_as_readings(t_s, frequency_hz), 3, "drift_rate_curve")
+    if nominal_hz is None:
+        nominal_hz = float(np.median(f))
+    _check_positive("nominal_hz", nominal_hz)
+    m = _RATE_BINS
+    b = window_s / m
+    t_first = t[0]
+    k = np.floor((t - t_first) / b).astype(np.int64)
+    nb = int(k[-1]) + 1
+    c = t_first + (k + 0.5) * b
+    x = t - c
+    y = f - float(np.median(f))
+    n_k = np.bincount(k, minlength=nb).astype(float)
+    sx = np.bincount(k, x, nb)
+    sxx = np.bincount(k, x * x, nb)
+    sy = np.bincount(k, y, nb)
+    sxy = np.bincount(k, x * y, nb)
+    if nb < m:
+        empty = np.empty(0)
+        return RateCurve(empty, empty, empty, float(window_s))
+    from numpy.lib.stride_tricks import sliding_window_view as _win
+
+    d = (np.arange(m) - m / 2 + 0.5) * b  # bin centre minus window centre
+    wn, wsx, wsxx, wsy, wsxy = (_win(a, m) for a in (n_k, sx, sxx, sy, sxy))
+    n = wn.sum(axis=1)
+    sx_w = (wsx + wn * d).sum(axis=1)
+    sxx_w = (wsxx + 2 * d * wsx + wn * d * d).sum(axis=1)
+    sy_w = wsy.sum(axis=1)
+    sxy_w = (wsxy + d * wsy).sum(axis=1)
+    den = n * sxx_w - sx_w**2
+    q = m // 4
+    good = (n >= 3) & (wn[:, :q].sum(axis=1) > 0) & (wn[:, -q:].sum(axis=1) > 0) & (den > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = np.where(good, (n * sxy_w - sx_w * sy_w) / np.where(good, den, 1.0), np.nan)
+    # A least-squares slope belongs to the mean time of the readings it was fitted on,
+    # which is the window centre only for symmetric sampling.
+    with np.errstate(invalid="ignore", divide="ignore"):
+        centres = t_first + (np.arange(slope.size) + m / 2) * b + np.where(good, sx_w / n, 0.0)
+    return RateCurve(
+        t_s=centres,
+        hz_per_s=slope,
+        ppm_per_min=slope * 60.0 / nominal_hz * 1e6,
+        window_s=float(window_s),
+    )
+
+
+def warmup_time(
+    t_s,
+    frequency_hz,
+    *,
+    threshold_ppm_per_min: float = 1.0,
+    window_s: float = 60.0,
+    nominal_hz: float | None = None,
+) -> Warmup:
+    """Time after which the local drift rate stays below a threshold to the end.
+
+    The local rate is the least-squares slope over a sliding window (`drift_rate_curve`).
+    The answer is the crossing, interpolated linearly in log|rate| between the last window
+    above the threshold and the next one, of the last excursion above it.
+
+    Parameters
+    ----------
+    t_s : array_like
+        Reading times, s, strictly increasing.
+    frequency_hz : array_like
+        Readings, Hz.
+    threshold_ppm_per_min : float, default 1.0
+        Settling threshold on |drift rate|, ppm of `nominal_hz` per minute.
+    window_s : float, default 60.0
+        Window of the local fit. A longer window averages more noise but responds later;
+        for f = f_inf + A*exp(-t/T) the fitted slope is the true one times
+        3*(a*cosh(a) - sinh(a))/a**3, a = window_s/(2*T).
+    nominal_hz : float, optional
+        Default: the median reading.
+
+    Returns
+    -------
+    Warmup
+
+    Raises
+    ------
+    ValueError
+        Non-positive threshold, window or nominal frequency; fewer than three readings.
+    """
+    _check_positive("threshold_ppm_per_min", threshold_ppm_per_min)
+    curve = drift_rate_curve(t_s, frequency_hz, window_s=window_s, nominal_hz=nominal_hz)
+    t = np.asarray(t_s, dtype=float)
+    valid = np.isfinite(curve.ppm_per_min)
+    tc = curve.t_s[valid]
+    r = np.abs(curve.ppm_per_min[valid])
+    if r.size == 0:
+        return Warmup(None, None, float(threshold_ppm_per_min), float(window_s), math.nan)
+    above = np.nonzero(r >= threshold_ppm_per_min)[0]
+    if above.size == 0:
+        settled = float(t[0])
+    elif above[-1] == r.size - 1:
+        return Warmup(None, None, float(threshold_ppm_per_min), float(window_s), float(r[-1]))
+    else:
+        i = int(above[-1])
+        r0, r1 = r[i], r[i + 1]
+        # Interpolate in log|rate|: exact for an exponential settle, the common shape.
+        frac = (
+            math.log(r0 / threshold_ppm_per_min) / math.log(r0 / r1) if r1 > 0 and r0 > r1 else 1.0
+        )
+        settled = float(tc[i] + frac * (tc[i + 1] - tc[i]))
+    return Warmup(
+        warmup_s=settled - float(t[0]),
+        settled_at_t_s=settled,
+        threshold_ppm_per_min=float(threshold_ppm_per_min),
+        window_s=float(window_s),
+        final_ppm_per_min=float(r[-1]),
+    )
+
+
+# ---------------------------------------------------------------------------------------
+# the Allan family
+
+
+def octave_factors(n_readings: int, *, kind: str = "oadev") -> np.ndarray:
+    """Averaging factors m = 1, 2, 4, ... that `kind` can use on `n_readings` readings.
+
+    Parameters
+    ----------
+    n_readings : int
+        Number of contiguous frequency readings.
+    kind : {"adev", "oadev", "mdev", "tdev"}
+        ADEV and OADEV need 2*m readings, MDEV and TDEV 3*m.
+
+    Returns
+    -------
+    numpy.ndarray of int
+    """
+    span = 3 if kind in ("mdev", "tdev") else 2
+    if n_readings < span:
+        return np.zeros(0, dtype=np.int64)
+    top = int(math.floor(math.log2(n_readings / span)))
+    return 2 ** np.arange(top + 1, dtype=np.int64)
+
+
+_KINDS = ("adev", "oadev", "mdev")
+
+
+def lag1_noise_alpha(y, m: int) -> int:
+    """Power-law noise exponent alpha (S_y ~ f^alpha) by lag-1 autocorrelation.
+
+    The readings are averaged in groups of `m`, a straight line is removed, and the
+    series is differenced until its lag-1 autocorrelation r1 gives delta = r1/(1+r1) below
+    0.25 (at most twice); alpha = -round(2*delta) - 2*d.
+
+    Parameters
+    ----------
+    y : array_like
+        Fractional frequency readings, contiguous.
+    m : int
+        Averaging factor.
+
+    Returns
+    -------
+    int
+        alpha: 2 white PM, 1 flicker PM, 0 white FM, -1 flicker FM, -2 random-walk FM.
+
+    Raises
+    ------
+    ValueError
+        If fewer than 30 averages remain, or `m` < 1.
+
+    References
+    ----------
+    W. J. Riley and C. A. Greenhall, "Power law noise identification using the lag 1
+    autocorrelation", 18th European Frequency and Time Forum (2004), eqs. (2)-(4); NIST
+    SP 1065 [1] section 5.6. Same algorithm as allantools.autocorr_noise_id (frequency
+    data), vectorised.
+    """
+    if m < 1:
+        raise ValueError(f"m={m} must be >= 1")
+    yv = np.asarray(y, dtype=float).ravel()
+    k = yv.size // m
+    if k < 30:
+        raise ValueError(f"lag-1 noise identification needs 30 averages, got {k} (m={m})")
+    z = yv[: k * m].reshape(k, m).mean(axis=1)
+    idx = np.arange(k, dtype=float)
+    z = z - np.polyval(np.polyfit(idx, z, 1), idx)
+    d = 0
+    while True:
+        z0 = z - z.mean()
+        den = float(np.dot(z0, z0))
+        r1 = float(np.dot(z0[:-1], z0[1:]) / den) if den > 0 else 0.0
+        delta = r1 / (1.0 + r1)
+        if delta < 0.25 or d >= 2:
+            return int(-round(2 * delta) - 2 * d)
+        z = np.diff(z)
+        d += 1
+
+
+def _noise_alphas(y: np.ndarray, ms: Sequence[int]) -> dict[int, int]:
+    """Alpha per averaging factor, clipped to [-2, 2]; carried on where data run short."""
+    out: dict[int, int] = {}
+    last = 0  # white FM until something is identified
+    for m in ms:
+        if y.size // m >= 100:
+            last = lag1_noise_alpha(y, int(m))
+        out[int(m)] = int(min(2, max(-2, last)))
+    return out
+
+
+def _edf(alpha: int, m: int, n_phase: int, kind: str) -> float:
+    import allantools
+
+    try:
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            e = allantools.edf_greenhall(
+                alpha=int(alpha),
+                d=2,
+                m=int(m),
+                N=int(n_phase),
+                overlapping=kind != "adev",
+                modified=kind == "mdev",
+            )
+        e = float(e)
+    except (AssertionError, ValueError, ZeroDivisionError, OverflowError, NotImplementedError):
+        e = math.nan
+    if not (math.isfinite(e) and e > 0):
+        e = float(allantools.edf_simple(int(n_phase), int(m), int(alpha)))
+    return e
+
+
+def allan_family(
+    y,
+    tau0_s: float,
+    *,
+    segments: Sequence[tuple[int, int]] | None = None,
+    factors: Sequence[int] | None = None,
+    confidence: float = _CI_ONE_SIGMA,
+) -> dict[str, AllanCurve]:
+    """ADEV, OADEV, MDEV and TDEV of fractional-frequency readings, with intervals.
+
+    Each contiguous segment goes through allantools (frequency data, rate 1/tau0); the
+    variances are pooled over segments weighted by their number of terms, and the
+    equivalent degrees of freedom are added. Nothing is interpolated across gaps.
+
+    Parameters
+    ----------
+    y : array_like
+        Fractional frequency readings (y = f/nominal - 1), one per gate.
+    tau0_s : float
+        Gate time (reading interval), s.
+    segments : sequence of (int, int), optional
+        Index ranges [start, stop) of contiguous readings. Default: all one segment.
+    factors : sequence of int, optional
+        Averaging factors m (tau = m*tau0). Default: octaves, 1, 2, 4, ...
+    confidence : float, default 0.683
+        Two-sided probability of the confidence intervals.
+
+    Returns
+    -------
+    dict
+        {"adev", "oadev", "mdev", "tdev"} -> AllanCurve. TDEV is tau*MDEV/sqrt(3), s.
+
+    Raises
+    ------
+    ValueError
+        Non-positive `tau0_s`, `confidence` outside (0, 1), bad factors or segments,
+        non-finite readings, or no tau computable.
+
+    References
+    ----------
+    NIST SP 1065 [1], eqs. (6), (11), (14), (15); confidence intervals eq. (45) with the
+    Greenhall-Riley equivalent degrees of freedom [4].
+    """
+    import allantools
+
+    _check_positive("tau0_s", tau0_s)
+    if not 0 < confidence < 1:
+        raise ValueError(f"confidence={confidence} must be in (0, 1)")
+    yv = np.asarray(y, dtype=float).ravel()
+    if not np.all(np.isfinite(yv)):
+        raise ValueError("y must be finite: split the readings at missing values (segments)")
+    segs = [(0, yv.size)] if segments is None else [(int(a), int(b)) for a, b in segments]
+    for a, b in segs:
+        if not 0 <= a < b <= yv.size:
+            raise ValueError(f"segment ({a}, {b}) is outside the {yv.size} readings")
+    longest = max(b - a for a, b in segs)
+    if factors is None:
+        factors = octave_factors(longest, kind="oadev")
+    ms = np.unique(np.asarray(factors, dtype=np.int64))
+    if ms.size == 0 or ms[0] < 1:
+        raise ValueError(f"factors={list(factors)} must be positive integers")
+    fns = {"adev": allantools.adev, "oadev": allantools.oadev, "mdev": allantools.mdev}
+    rate = 1.0 / tau0_s
+    acc: dict[str, dict[int, list]] = {k: {} for k in _KINDS}
+    for a, b in segs:
+        seg = yv[a:b]
+        need = {"adev": 2, "oadev": 2, "mdev": 3}
+        for kind in _KINDS:
+            use = ms[ms * need[kind] <= seg.size]
+            if use.size == 0:
+                continue
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                taus, devs, _err, ns = fns[kind](
+                    seg, rate=rate, data_type="freq", taus=use.astype(float) * tau0_s
+                )
+            for tau, dev, n in zip(taus, devs, ns, strict=True):
+                if n <= 0 or not math.isfinite(dev):
+                    continue
+                m = int(round(tau / tau0_s))
+                slot = acc[kind].setdefault(m, [0.0, 0, []])
+                slot[0] += float(dev) ** 2 * int(n)
+                slot[1] += int(n)
+                slot[2].append(seg.size + 1)  # phase points of this segment
+    if not acc["oadev"]:
+        raise ValueError(f"no tau can be computed from {yv.size} readings (need at least 2)")
+    pooled = {}
+    for kind in _KINDS:
+        m_sorted = sorted(acc[kind])
+        pooled[kind] = (
+            np.array(m_sorted, dtype=np.int64),
+            np.array([math.sqrt(acc[kind][m][0] / acc[kind][m][1]) for m in m_sorted]),
+        )
+    # Noise exponents for the intervals: lag-1 autocorrelation identification (NIST SP
+    # 1065 section 5.6, Riley-Greenhall) on the longest segment where it holds at least 100
+    # averages; beyond that the last identified type is carried on, as SP 1065 advises.
+    a_long, b_long = max(segs, key=lambda s: s[1] - s[0])
+    alpha_by_m = _noise_alphas(yv[a_long:b_long], sorted(set(acc["oadev"]) | set(acc["mdev"])))
+
+    def alpha_at(m: int) -> int:
+        return alpha_by_m.get(m, 0)
+
+    out: dict[str, AllanCurve] = {}
+    for kind in _KINDS:
+        m_arr, vals = pooled[kind]
+        alphas = [alpha_at(int(m)) for m in m_arr]
+        edfs = [
+            sum(_edf(al, int(m), n_ph, kind) for n_ph in acc[kind][int(m)][2])
+            for m, al in zip(m_arr, alphas, strict=True)
+        ]
+        lo, hi = zip(
+            *(
+                allantools.confidence_interval(v, e, ci=confidence)
+                for v, e in zip(vals, edfs, strict=True)
+            ),
+            strict=True,
+        )
+        out[kind] = AllanCurve(
+            kind=kind,
+            taus_s=tuple(float(m * tau0_s) for m in m_arr),
+            values=tuple(float(v) for v in vals),
+            lower=tuple(float(v) for v in lo),
+            upper=tuple(float(v) for v in hi),
+            edf=tuple(float(e) for e in edfs),
+            n_terms=tuple(int(acc[kind][int(m)][1]) for m in m_arr),
+            alpha=tuple(alphas),
+            confidence=float(confidence),
+        )
+    md = out["mdev"]
+    scale = [tau / math.sqrt(3.0) for tau in md.taus_s]
+    out["tdev"] = AllanCurve(
+        kind="tdev",
+        taus_s=md.taus_s,
+        values=tuple(s * v for s, v in zip(scale, md.values, strict=True)),
+        lower=tuple(s * v for s, v in zip(scale, md.lower, strict=True)),
+        upper=tuple(s * v for s, v in zip(scale, md.upper, strict=True)),
+        edf=md.edf,
+        n_terms=md.n_terms,
+        alpha=md.alpha,
+        confidence=md.confidence,
+    )
+    return out
+
+
+def _slope_type(mu: float, mu_mod: float) -> str:
+    if mu < -0.75:
+        return "white PM" if mu_mod < -1.25 else "flicker PM"
+    if mu < -0.25:
+        return "white FM"
+    if mu < 0.25:
+        return "flicker FM"
+    if mu < 0.75:
+        return "random-walk FM"
+    return "linear drift"
+
+
+def noise_hint(
+    adev: AllanCurve, mdev: AllanCurve, *, drift_per_s: float | None = None
+) -> NoiseHint:
+    """Name the power-law noise type from the slopes of OADEV and MDEV.
+
+    The ADEV slope mu (sigma_y ~ tau^mu) is -1 for white and flicker PM, -1/2 for white
+    FM, 0 for flicker FM, +1/2 for random-walk FM and +1 for a linear drift D, which gives
+    sigma_y = D*tau/sqrt(2); MDEV's slope (-3/2 for white PM, -1 for flicker PM) tells
+    the two PM types apart. Boundaries lie half way between the nominal slopes.
+
+    Parameters
+    ----------
+    adev : AllanCurve
+        Overlapping ADEV.
+    mdev : AllanCurve
+        MDEV over the same readings.
+    drift_per_s : float, optional
+        Fractional linear drift (1/s), from `fit_drift`; with a slope near +1 the hint
+        says whether D*tau/sqrt(2) accounts for the curve.
+
+    Returns
+    -------
+    NoiseHint
+
+    References
+    ----------
+    NIST SP 1065 [1], section 5.2.1 and Table 5; drift signature in section 5.2.1.
+    """
+
+    def fit(c: AllanCurve) -> float:
+        if len(c.taus_s) < 2:
+            return math.nan
+        lt, lv = np.log(c.taus_s), np.log(np.maximum(c.values, 1e-300))
+        w = np.sqrt(np.maximum(np.asarray(c.edf, float), 1e-9))
+        return float(np.polyfit(lt, lv, 1, w=w)[0])
+
+    mu, mu_mod = fit(adev), fit(mdev)
+    per_tau = []
+    for i in range(len(adev.taus_s) - 1):
+        s = math.log(adev.values[i + 1] / adev.values[i]) / math.log(
+            adev.taus_s[i + 1] / adev.taus_s[i]
+        )
+        j = int(np.argmin(np.abs(np.log(np.asarray(mdev.taus_s) / adev.taus_s[i]))))
+        if j + 1 < len(mdev.taus_s):
+            sm = math.log(mdev.values[j + 1] / mdev.values[j]) / math.log(
+                mdev.taus_s[j + 1] / mdev.taus_s[j]
+            )
+        else:
+            sm = s
+        per_tau.append((float(adev.taus_s[i]), _slope_type(s, sm)))
+    if not math.isfinite(mu):
+        return NoiseHint("unknown", mu, mu_mod, "too few taus for a slope", tuple(per_tau))
+    mm = mu_mod if math.isfinite(mu_mod) else mu
+    kind = _slope_type(mu, mm)
+    text = f"OADEV slope {mu:+.2f}, MDEV slope {mm:+.2f}: nearest power law is {kind}"
+    if kind == "linear drift":
+        if drift_per_s is not None and drift_per_s != 0:
+            pred = abs(drift_per_s) * np.asarray(adev.taus_s) / math.sqrt(2)
+            ratio = float(np.median(np.asarray(adev.values) / pred))
+            text += (
+                f"; the fitted drift predicts D*tau/sqrt(2) at {ratio:.2f} of the measured "
+                "curve" + (" (drift explains it)" if 0.7 < ratio < 1.4 else "")
+            )
+            if not 0.7 < ratio < 1.4:
+                text += " (random-run FM or changing drift also give slope +1)"
+        else:
+            text += " (random-run FM also gives slope +1)"
+    return NoiseHint(kind, mu, mu_mod, text, tuple(per_tau))
+
+
+# ---------------------------------------------------------------------------------------
+# one call for everything
+
+Selection = Literal["all", "settled", "span"]
+
+
+def analyze_stability(
+    t_s,
+    frequency_hz,
+    *,
+    nominal_hz: float | None = None,
+    tau0_s: float | None = None,
+    settle_ppm_per_min: float = 1.0,
+    settle_window_s: float = 60.0,
+    select: Selection = "all",
+    span_s: tuple[float, float] | None = None,
+    factors: Sequence[int] | None = None,
+    remove_drift: bool = False,
+    confidence: float = _CI_ONE_SIGMA,
+) -> StabilityResult:
+    """Drift, warm-up, Allan family and noise hint of a run of readings.
+
+    Parameters
+    ----------
+    t_s : array_like
+        Reading times, s, strictly increasing.
+    frequency_hz : array_like
+        Readings, Hz; NaN marks a missing reading.
+    nominal_hz : float, optional
+        Reference for fractional frequency and ppm. Default: the median reading.
+    tau0_s : float, optional
+        Gate time. Default: the median reading interval.
+    settle_ppm_per_min : float, default 1.0
+        Warm-up threshold on the drift rate.
+    settle_window_s : float, default 60.0
+        Window of the local drift-rate fit for the warm-up time.
+    select : {"all", "settled", "span"}, default "all"
+        Readings the Allan family uses: all of them, those after the warm-up time, or
+        those with span_s[0] <= t <= span_s[1].
+    span_s : (float, float), optional
+        Required with select="span".
+    factors : sequence of int, optional
+        Averaging factors (tau = m*tau0). Default: octaves.
+    remove_drift : bool, default False
+        Subtract the linear drift fit before the Allan family (drift then no longer
+        dominates long taus; the drift figures are still reported).
+    confidence : float, default 0.683
+        Two-sided probability of the confidence intervals.
+
+    Returns
+    -------
+    StabilityResult
+
+    Raises
+    ------
+    ValueError
+        Bad parameters, too few readings, a span or settled part with too few readings,
+        or select="settled" on a record that never settles.
+    """
+    if select not in ("all", "settled", "span"):
+        raise ValueError(f"select={select!r} must be one of 'all', 'settled', 'span'")
+    t, f = _as_readings(t_s, frequency_hz)
+    check = check_readings(t, f, tau0_s=tau0_s)
+    tau0 = check.tau0_s
+    tu, fu = t[np.isfinite(f)], f[np.isfinite(f)]
+    if nominal_hz is None:
+        nominal_hz = float(np.median(fu))
+    _check_positive("nominal_hz", nominal_hz)
+    notes = list(check.warnings)
+    drift = fit_drift(tu, fu, nominal_hz=nominal_hz)
+    window = settle_window_s
+    if window > 0.25 * drift.duration_s and drift.duration_s > 0:
+        window = max(drift.duration_s / 4, 3 * tau0)
+        notes.append(
+            f"record of {drift.duration_s:g} s is short for a {settle_window_s:g} s "
+            f"warm-up window; using {window:g} s"
+        )
+    warm = warmup_time(
+        tu,
+        fu,
+        threshold_ppm_per_min=settle_ppm_per_min,
+        window_s=window,
+        nominal_hz=nominal_hz,
+    )
+    if select == "span":
+        if span_s is None or len(span_s) != 2 or not span_s[0] < span_s[1]:
+            raise ValueError(f"span_s={span_s} must be (t0, t1) with t0 < t1")
+        lo, hi = float(span_s[0]), float(span_s[1])
+    elif select == "settled":
+        if warm.settled_at_t_s is None:
+            raise ValueError(
+                f"the drift rate never stays below settle_ppm_per_min={settle_ppm_per_min}"
+                f" (last window: {warm.final_ppm_per_min:.3g} ppm/min)"
+            )
+        lo, hi = warm.settled_at_t_s, float(t[-1])
+    else:
+        lo, hi = float(t[0]), float(t[-1])
+    if warm.warmup_s is None:
+        notes.append(
+            f"the drift rate never stays below {settle_ppm_per_min:g} ppm/min "
+            f"(last {warm.window_s:g} s window: {warm.final_ppm_per_min:.3g} ppm/min)"
+        )
+    sel = (tu >= lo) & (tu <= hi)
+    if sel.sum() < 2:
+        raise ValueError(f"span {lo:g}..{hi:g} s holds {int(sel.sum())} readings, need 2")
+    y = fractional_frequency(fu, nominal_hz)
+    if remove_drift:
+        y = y - drift.hz_per_s / nominal_hz * (tu - 0.5 * (tu[0] + tu[-1]))
+    idx = np.nonzero(sel)[0]
+    segs = []
+    for a, b in check.segments:
+        a2, b2 = max(a, idx[0]), min(b, idx[-1] + 1)
+        if b2 > a2:
+            segs.append((a2 - idx[0], b2 - idx[0]))
+    curves = allan_family(
+        y[idx[0] : idx[-1] + 1], tau0, segments=segs, factors=factors, confidence=confidence
+    )
+    hint = noise_hint(
+        curves["oadev"],
+        curves["mdev"],
+        drift_per_s=None if remove_drift else drift.hz_per_s / nominal_hz,
+    )
+    return StabilityResult(
+        check=check,
+        drift=drift,
+        warmup=warm,
+        span_s=(float(tu[idx[0]]), float(tu[idx[-1]])),
+        nominal_hz=float(nominal_hz),
+        adev=curves["oadev"],
+        adev_nonoverlapping=curves["adev"],
+        mdev=curves["mdev"],
+        tdev=curves["tdev"],
+        noise=hint,
+        warnings=tuple(notes),
+    )
