@@ -403,7 +403,10 @@ def estimate_tone(
         # three-parameter fit of that step stands for the converged one.
         if abs(dw) < 1e-4 * bin_w:
             break
-    amp = math.hypot(a3, b3)
+    # The Gauss-Newton solution carries the amplitude and phase at the updated frequency
+    # to first order; the three-parameter projections give the residual energy.
+    a_fit, b_fit, d_fit = float(sol[0]), float(sol[1]), float(sol[2])
+    amp = math.hypot(a_fit, b_fit)
     rss = g.sum_x2 - (a3 * xc + b3 * xs + d3 * g.sum_x)
     dof = max(1, n - 4)
     sigma2 = max(rss, 0.0) / dof
@@ -418,10 +421,10 @@ def estimate_tone(
         uncertainty_hz=crlb_frequency_std_hz(eta, n, fs_hz),
         amplitude=float(amp),
         amplitude_dbfs=float(20.0 * math.log10(amp)) if amp > 0 else -math.inf,
-        phase_rad=float(math.atan2(-b3, a3)),
+        phase_rad=float(math.atan2(-b_fit, a_fit)),
         phase_uncertainty_rad=float(1.0 / math.sqrt(eta * n)) if eta > 0 else math.inf,
         t_ref_s=(n - 1) / 2.0 / fs_hz,
-        offset=float(d3),
+        offset=d_fit,
         snr_db=float(10.0 * math.log10(eta)) if eta > 0 else -math.inf,
         n_samples=n,
         acquired=acquired,
