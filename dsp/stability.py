@@ -378,7 +378,9 @@ def fractional_frequency(frequency_hz, nominal_hz: float) -> np.ndarray:
 # regularity
 
 
-def check_readings(t_s, frequency_hz, *, tau0_s: float | None = None) -> ReadingCheck:
+def check_readings(
+    t_s, frequency_hz, *, tau0_s: float | None = None, breaks_before=None
+) -> ReadingCheck:
     """Find the reading interval, gaps, missing readings and irregular spacing.
 
     Parameters
@@ -389,6 +391,9 @@ def check_readings(t_s, frequency_hz, *, tau0_s: float | None = None) -> Reading
         Readings, Hz; NaN marks a reading without a frequency (a gap).
     tau0_s : float, optional
         Gate time. Default: the median interval between consecutive readings.
+    breaks_before : array_like of bool, optional
+        True where a reading is known not to follow the previous one without a gap (for
+        example lost input reported by the sound card), whatever the times say.
 
     Returns
     -------
@@ -414,6 +419,11 @@ def check_readings(t_s, frequency_hz, *, tau0_s: float | None = None) -> Reading
     hole = np.diff(missing_before) > 0
     long = dt > 1.5 * tau0_s
     brk = long | hole
+    if breaks_before is not None:
+        bb = np.asarray(breaks_before, dtype=bool).ravel()
+        if bb.shape != t.shape:
+            raise ValueError(f"breaks_before has {bb.size} entries for {t.size} readings")
+        brk = brk | bb[ok][1:]
     starts = np.concatenate(([0], np.nonzero(brk)[0] + 1))
     stops = np.concatenate((np.nonzero(brk)[0] + 1, [tu.size]))
     segments = tuple((int(a), int(b)) for a, b in zip(starts, stops, strict=True))
@@ -1023,6 +1033,7 @@ def analyze_stability(
     factors: Sequence[int] | None = None,
     remove_drift: bool = False,
     confidence: float = _CI_ONE_SIGMA,
+    breaks_before=None,
 ) -> StabilityResult:
     """Drift, warm-up, Allan family and noise hint of a run of readings.
 
@@ -1052,6 +1063,8 @@ def analyze_stability(
         dominates long taus; the drift figures are still reported).
     confidence : float, default 0.683
         Two-sided probability of the confidence intervals.
+    breaks_before : array_like of bool, optional
+        Known breaks, as in `check_readings`.
 
     Returns
     -------
@@ -1066,7 +1079,7 @@ def analyze_stability(
     if select not in ("all", "settled", "span"):
         raise ValueError(f"select={select!r} must be one of 'all', 'settled', 'span'")
     t, f = _as_readings(t_s, frequency_hz)
-    check = check_readings(t, f, tau0_s=tau0_s)
+    check = check_readings(t, f, tau0_s=tau0_s, breaks_before=breaks_before)
     tau0 = check.tau0_s
     tu, fu = t[np.isfinite(f)], f[np.isfinite(f)]
     if nominal_hz is None:
