@@ -337,12 +337,13 @@ def _g(v, fmt=".3g", unit=""):
 
 def _print(doc: dict) -> None:
     from rich.console import Console
+    from rich.markup import escape
     from rich.table import Table
 
     out = Console()
     rd = doc["readings"]
     head = Table(
-        title=f"{'floor' if doc['role'] == 'floor' else 'stability'}: {doc['source']}",
+        title=f"{'floor' if doc['role'] == 'floor' else 'stability'}: {escape(doc['source'])}",
         title_justify="left",
         show_header=False,
         box=None,
@@ -406,18 +407,18 @@ def _print(doc: dict) -> None:
             ]
         t.add_row(*row)
     out.print(t)
-    out.print(f"noise: {doc['noise']['explanation']}")
-    out.print(f"quote: {doc['quote']['text']}")
+    out.print(f"noise: {escape(doc['noise']['explanation'])}")
+    out.print(f"quote: {escape(doc['quote']['text'])}")
     if doc["comparison"] and any(c["at_floor"] for c in doc["comparison"]):
         out.print(
             f"where DUT/floor < {FLOOR_RATIO:g} the figure is set by the sound card's clock "
             "and the counter, not by the oscillator: it is an upper bound at best."
         )
     for msg in doc["warnings"] + ((doc["reference"] or {}).get("warnings") or []):
-        out.print(f"[yellow]warning:[/yellow] {msg}")
-    out.print(f"[dim]{doc['interpretation']}[/dim]")
+        out.print(f"[yellow]warning:[/yellow] {escape(msg)}")
+    out.print(f"[dim]{escape(doc['interpretation'])}[/dim]")
     if doc.get("plot"):
-        out.print(f"plot written to {doc['plot']}")
+        out.print(f"plot written to {escape(doc['plot'])}")
 
 
 # ---------------------------------------------------------------------------------------
