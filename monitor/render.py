@@ -62,7 +62,8 @@ def summary_table(summary: dict):
         t.add_row(
             "ENOB / SFDR", f"{_num(q['enob_bits'], '.2f')} bit / {_num(q['sfdr_db'], '.1f')} dB"
         )
-        if q.get("hum_hz"):
+        # hum more than 80 dB below the tone is below anything a bench cares about
+        if q.get("hum_hz") and q.get("hum_db") is not None and q["hum_db"] > -80.0:
             t.add_row("mains hum", f"{q['hum_hz']:g} Hz at {_num(q['hum_db'], '.1f')} dB re tone")
     for extra in summary.get("_rows", []):
         t.add_row(*extra)
