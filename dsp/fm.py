@@ -1,0 +1,1158 @@
+"""FM modulation analysis: streaming discriminator, deviation statistics, Bessel lines.
+
+The demodulator turns a real beat-note signal or complex I/Q into the instantaneous
+frequency offset from a given carrier, gate after gate, with all state carried between
+calls. The statistics take that instantaneous frequency *after* the application's
+post-demodulation filter (audio band, de-emphasis): peaks of a raw discriminator output
+are set by noise spikes, not by the modulation.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import scipy.fft as sfft
+import scipy.signal as ssig
+import scipy.special as sspec
+from scipy.optimize import minimize_scalar
+
+__all__ = [
+    "BS412_REFERENCE_DEVIATION_HZ",
+    "BesselFit",
+    "DeviationFigures",
+    "DeviationHistogram",
+    "FmDemodulator",
+    "ModulationPower",
+    "ModulationPowerMeter",
+    "carson_bandwidth_hz",
+    "deviation_figures",
+    "fit_bessel",
+    "fm_line_amplitudes",
+    "modulation_index",
+    "modulation_power",
+    "modulation_power_dbr",
+]
+
+InputKind = Literal["real", "complex"]
+_KINDS = ("real", "complex")
+
+#: ITU-R BS.412: reference power is that of a sine giving +/-19 kHz peak deviation.
+BS412_REFERENCE_DEVIATION_HZ = 19_000.0
+
+_TWO_PI = 2.0 * math.pi
+
+
+def _positive_finite(name: str, value: float) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise TypeError(f"{name} must be a number, got {type(value).__name__}")
+    v = float(value)
+    if not math.isfinite(v) or v <= 0.0:
+        raise ValueError(f"{name}={value} must be finite and > 0")
+    return v
+
+
+def _nonneg_finite(name: str, value: float) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise TypeError(f"{name} must be a number, got {type(value).__name__}")
+    v = float(value)
+    if not math.isfinite(v) or v < 0.0:
+        raise ValueError(f"{name}={value} must be finite and >= 0")
+    return v
+
+
+def _finite(name: str, value: float) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise TypeError(f"{name} must be a number, got {type(value).__name__}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise ValueError(f"{name}={value} must be finite")
+    return v
+
+
+def _as_real_1d(name: str, x) -> np.ndarray:
+    a = np.asarray(x)
+    if a.dtype.kind not in "biuf":
+        raise TypeError(f"{name} must be a real numeric array, got dtype {a.dtype}")
+    if a.ndim > 1:
+        raise ValueError(f"{name} must be one-dimensional, got shape {a.shape}")
+    return np.asarray(a, dtype=np.float64).reshape(-1)
+
+
+def _as_1d(name: str, x, kind: InputKind) -> np.ndarray:
+    a = np.asarray(x)
+    if a.ndim > 1:
+        raise ValueError(f"{name} must be one-dimensional, got shape {a.shape}")
+    if kind == "real":
+        if a.dtype.kind not in "biuf":
+            raise TypeError(f"{name} must be real for kind='real', got dtype {a.dtype}")
+        return np.asarray(a, dtype=np.float64).reshape(-1)
+    if a.dtype.kind not in "biufc":
+        raise TypeError(f"{name} must be numeric, got dtype {a.dtype}")
+    return np.asarray(a, dtype=np.complex128).reshape(-1)
+
+
+# --------------------------------------------------------------------------------------
+# Simple relations
+# --------------------------------------------------------------------------------------
+
+
+def carson_bandwidth_hz(peak_deviation_hz: float, mod_tone_hz: float) -> float:
+    """Carson's rule bandwidth of an FM signal, 2 * (peak deviation + modulating frequency).
+
+    Parameters
+    ----------
+    peak_deviation_hz : float
+        Peak frequency deviation in Hz (>= 0).
+    mod_tone_hz : float
+        Highest modulating frequency in Hz (>= 0).
+
+    Returns
+    -------
+    float
+        Bandwidth in Hz holding roughly 98% of the power.
+
+    Raises
+    ------
+    ValueError
+        If an argument is negative or not finite.
+
+    References
+    ----------
+    Federal Standard 1037C, "Carson's rule": B = 2 (deltaf + fm).
+    """
+    df = _nonneg_finite("peak_deviation_hz", peak_deviation_hz)
+    fm = _nonneg_finite("mod_tone_hz", mod_tone_hz)
+    return 2.0 * (df + fm)
+
+
+def modulation_index(peak_deviation_hz: float, mod_tone_hz: float) -> float:
+    """Modulation index beta = peak deviation / modulating frequency (single tone).
+
+    Parameters
+    ----------
+    peak_deviation_hz : float
+        Peak frequency deviation in Hz (>= 0).
+    mod_tone_hz : float
+        Modulating tone in Hz (> 0).
+
+    Returns
+    -------
+    float
+        beta, dimensionless (radians of peak phase deviation).
+
+    Raises
+    ------
+    ValueError
+        If peak_deviation_hz < 0 or mod_tone_hz <= 0, or either is not finite.
+    """
+    df = _nonneg_finite("peak_deviation_hz", peak_deviation_hz)
+    fm = _positive_finite("mod_tone_hz", mod_tone_hz)
+    return df / fm
+
+
+# --------------------------------------------------------------------------------------
+# Discriminator
+# --------------------------------------------------------------------------------------
+
+# Taylor coefficients of atan(v)/v in v^2. After folding to the right half-plane and
+# three half-angle steps |v| <= tan(pi/16) = 0.199, where six terms leave < 1e-8 rad.
+_ATAN_TAYLOR = tuple((-1.0) ** k / (2 * k + 1) for k in range(6))
+
+
+def _phase_angle(re: np.ndarray, im: np.ndarray) -> np.ndarray:
+    """Angle of re + j*im in [-pi, pi] as float32, within 1e-6 rad of numpy.arctan2.
+
+    numpy's arctan2 costs about 40 ns per sample on the machines we benchmark on. Here
+    the point is folded into the right half-plane (angle(-p) = angle(p) -/+ pi), then
+    tan(t/2) = y / (r + x) (no cancellation for x >= 0) and two steps
+    tan(t/2) = u / (1 + sqrt(1 + u^2)) reduce the argument to |v| <= 0.199, where a short
+    series converges; only multiplications, divisions and square roots are used, in
+    float32, which numpy vectorises: about four times faster. float32 rounding limits the
+    angle to about 1e-7 rad, i.e. 4e-4 Hz at a 24 kHz output rate.
+    """
+    x = np.asarray(re, dtype=np.float32)
+    y = np.asarray(im, dtype=np.float32)
+    neg = x < 0
+    sgn = np.where(neg, np.float32(-1.0), np.float32(1.0))
+    y = y * sgn
+    x = x * sgn  # |x|
+    r = x * x
+    r += y * y
+    np.sqrt(r, out=r)
+    r += x
+    with np.errstate(divide="ignore", invalid="ignore"):
+        u = np.divide(y, r)  # |u| <= 1; 0/0 only at the origin
+    for _ in range(2):
+        s = u * u
+        s += 1.0
+        np.sqrt(s, out=s)
+        s += 1.0
+        np.divide(u, s, out=u)
+    s = u * u
+    acc = np.full_like(u, _ATAN_TAYLOR[-1])
+    for c in _ATAN_TAYLOR[-2::-1]:
+        acc *= s
+        acc += np.float32(c)
+    acc *= u
+    acc *= np.float32(8.0)
+    # Undo the fold: points from the left half-plane move by +pi (upper) or -pi (lower).
+    corr = np.copysign(np.float32(math.pi), np.asarray(im, dtype=np.float32))
+    corr *= neg
+    acc += corr
+    bad = ~np.isfinite(acc)
+    if bad.any():
+        acc[bad] = np.arctan2(np.asarray(im)[bad], np.asarray(re)[bad])
+    return acc
+
+
+class FmDemodulator:
+    """Streaming FM discriminator: carrier offset in Hz at a decimated rate.
+
+    The chain is the classical one: mix to complex baseband by ``-carrier_hz``, low-pass
+    to +/- ``if_bandwidth_hz / 2``, decimate by ``decimation``, polar discriminator
+    ``angle(z[n] conj(z[n-1])) * fs_out / (2 pi)``. It is evaluated in an equivalent,
+    cheaper order: the mixer is folded into the low-pass taps (g[k] = h[k] e^{j w k}, a
+    complex band-pass at the carrier), the band-pass runs as an FFT overlap-save
+    convolution that only evaluates the decimated outputs (spectrum folded before the
+    inverse transform), and the mixer's remaining phase ramp e^{-j w D m} at the output
+    rate becomes a constant subtracted from every discriminator angle (modulo 2 pi).
+    The result equals the direct chain up to rounding, for any split of the input into
+    calls, because the filter history, the output grid and the last baseband sample are
+    carried between calls.
+
+    An optional 3-tap equaliser [-1, 26, -1] / 24 undoes the sinc droop of the phase
+    difference (it averages the frequency over one output sample): at fm = fs_out / 20
+    the droop is 0.41% uncorrected, 0.004% corrected.
+
+    Parameters
+    ----------
+    fs_hz : float
+        Input sample rate in Hz.
+    carrier_hz : float
+        Carrier (beat-note or I/Q offset) frequency in Hz. Real input: 0 < carrier < fs/2;
+        complex input: -fs/2 < carrier < fs/2.
+    if_bandwidth_hz : float
+        Two-sided IF bandwidth in Hz; the passband is flat (ripple < 0.001 dB) over
+        carrier +/- if_bandwidth_hz / 2. Carson's rule (`carson_bandwidth_hz`) or wider.
+    kind : {"real", "complex"}
+        "real" for a beat note in a real audio signal, "complex" for I/Q.
+    oversample : float
+        The output rate is the input rate divided by the largest integer decimation that
+        keeps fs_out >= oversample * if_bandwidth_hz (default 2).
+    min_fs_out_hz : float, optional
+        Lower bound on the output rate, e.g. 2.2 x the upper edge of the audio filter that
+        follows (32 kHz or more for a 15 kHz band).
+    stopband_db : float
+        Attenuation of the IF filter outside the band and, for real input, of the
+        mixer image at -2 * carrier (default 80 dB).
+    droop_compensation : bool
+        Apply the [-1, 26, -1] / 24 equaliser to the output (default True).
+
+    Attributes
+    ----------
+    fs_out_hz : float
+        Output sample rate in Hz.
+    decimation : int
+        Input samples per output sample.
+    numtaps : int
+        Length of the IF filter.
+    first_output_time_s : float
+        Time of the first output sample relative to the first input sample, allowing
+        for the filter's group delay; output k is at first_output_time_s + k / fs_out_hz.
+    samples_out : int
+        Output samples produced so far.
+
+    Raises
+    ------
+    ValueError
+        If a rate or bandwidth is not positive, the carrier is outside the allowed range,
+        or (real input) the IF band does not fit between 0 Hz and fs/2:
+        ``carrier - bw/2 <= 0`` or ``carrier + bw/2 >= fs/2``, or is so close to 0 Hz
+        that the mixer image at -2 * carrier cannot be rejected with a filter of at most
+        16385 taps.
+
+    References
+    ----------
+    Polar discriminator and overlap-save filtering: common practice (e.g. R. G. Lyons,
+    Understanding Digital Signal Processing, 3rd ed., 13.22 and 13.10 [memory]). CIC/boxcar
+    droop equaliser [-1, 26, -1]/24 from the series 1/sinc(x) ~ 1 + (pi x)^2 / 6 [computed].
+    """
+
+    _MAX_TAPS = 16385
+    _BLOCK = 16384  # FFT size of a full block; larger FFTs fall out of cache here.
+
+    def __init__(
+        self,
+        fs_hz: float,
+        carrier_hz: float,
+        if_bandwidth_hz: float,
+        *,
+        kind: InputKind = "real",
+        oversample: float = 2.0,
+        min_fs_out_hz: float | None = None,
+        stopband_db: float = 80.0,
+        droop_compensation: bool = True,
+    ) -> None:
+        if kind not in _KINDS:
+            raise ValueError(f"kind={kind!r} must be one of {_KINDS}")
+        fs = _positive_finite("fs_hz", fs_hz)
+        fc = _finite("carrier_hz", carrier_hz)
+        bw = _positive_finite("if_bandwidth_hz", if_bandwidth_hz)
+        osr = _positive_finite("oversample", oversample)
+        if osr < 1.0:
+            raise ValueError(f"oversample={oversample} must be >= 1")
+        att = _positive_finite("stopband_db", stopband_db)
+        if not 20.0 <= att <= 150.0:
+            raise ValueError(f"stopband_db={stopband_db} must be in [20, 150]")
+        if kind == "real":
+            if fc - bw / 2.0 <= 0.0:
+                raise ValueError(
+                    f"carrier_hz={carrier_hz} - if_bandwidth_hz/2={bw / 2.0} must be > 0 "
+                    "for real input (the IF band would fold over 0 Hz)"
+                )
+            if fc + bw / 2.0 >= fs / 2.0:
+                raise ValueError(
+                    f"carrier_hz={carrier_hz} + if_bandwidth_hz/2={bw / 2.0} must be < "
+                    f"fs_hz/2={fs / 2.0} for real input"
+                )
+        else:
+            if not -fs / 2.0 < fc < fs / 2.0:
+                raise ValueError(f"carrier_hz={carrier_hz} must be in (-fs_hz/2, fs_hz/2)")
+            if bw > fs:
+                raise ValueError(f"if_bandwidth_hz={if_bandwidth_hz} must be <= fs_hz={fs}")
+        dec = max(1, int(math.floor(fs / (osr * bw) + 1e-9)))
+        if min_fs_out_hz is not None:
+            fmin = _positive_finite("min_fs_out_hz", min_fs_out_hz)
+            if fmin > fs:
+                raise ValueError(f"min_fs_out_hz={min_fs_out_hz} must be <= fs_hz={fs}")
+            dec = max(1, min(dec, int(math.floor(fs / fmin + 1e-9))))
+        fs_out = fs / dec
+        # Transition band: wide enough for a short filter, narrow enough that nothing
+        # folds into the passband at the output rate and, for real input, that the
+        # mixer image (nearest edge at 2*carrier - bw/2 from 0 Hz) is in the stopband.
+        if fs_out <= bw:
+            raise ValueError(
+                f"if_bandwidth_hz={if_bandwidth_hz} leaves no transition band at the output "
+                f"rate {fs_out} Hz; lower the bandwidth or raise oversample"
+            )
+        tw = min(0.25 * bw, fs_out - bw)
+        if kind == "real":
+            tw = min(tw, 2.0 * fc - bw)
+        numtaps, beta = ssig.kaiserord(att, tw / (fs / 2.0))
+        numtaps |= 1  # odd: integer group delay
+        if numtaps > self._MAX_TAPS:
+            raise ValueError(
+                f"carrier_hz={carrier_hz}, if_bandwidth_hz={if_bandwidth_hz}: the IF band is "
+                f"too close to 0 Hz (transition {tw:.3g} Hz needs {numtaps} taps); move the "
+                "carrier up or narrow the bandwidth"
+            )
+        cutoff = min(bw / 2.0 + tw / 2.0, 0.5 * fs * 0.999999)
+        h = ssig.firwin(numtaps, cutoff, window=("kaiser", beta), fs=fs)
+        k = np.arange(numtaps)
+        self._g = h * np.exp(1j * _TWO_PI * fc / fs * k)
+
+        self.fs_hz = fs
+        self.carrier_hz = fc
+        self.if_bandwidth_hz = bw
+        self.kind: InputKind = kind
+        self.decimation = dec
+        self.fs_out_hz = fs_out
+        self.numtaps = numtaps
+        self.droop_compensation = bool(droop_compensation)
+        self._pad = dec * int(math.ceil((numtaps - 1) / dec))
+        # Output-rate phase step of the mixer, kept in (-pi, pi].
+        step = math.fmod(fc * dec / fs, 1.0)
+        self._mix_cycles = step
+        c = _TWO_PI * step
+        c = c - _TWO_PI * round(c / _TWO_PI)
+        self._rot = complex(math.cos(-c), math.sin(-c))
+        # The first discriminator output needs two full filter windows.
+        self._first_j = self._pad // dec + 1
+        comp_delay = 1 if self.droop_compensation else 0
+        self.first_output_time_s = (self._first_j + comp_delay - 0.5) * dec / fs - (numtaps - 1) / (
+            2.0 * fs
+        )
+        self._max_new = (self._BLOCK - self._pad - 1) // dec + 1
+        if self._max_new < 64:
+            self._max_new = 64
+        self._spectra: dict[int, np.ndarray] = {}
+        self.reset()
+
+    # ----------------------------------------------------------------------------------
+    def reset(self) -> None:
+        """Forget all state, as if newly created."""
+        dtype = np.float64 if self.kind == "real" else np.complex128
+        self._hist = np.zeros(self._pad, dtype=dtype)  # input from J0*D - pad
+        self._j0 = 0  # decimated samples computed so far
+        self._m = 0  # input samples received
+        self._last_v: complex | None = None
+        self._tail = np.zeros(0)
+        self.samples_out = 0
+
+    def _spectrum_of_taps(self, n: int) -> np.ndarray:
+        g = self._spectra.get(n)
+        if g is None:
+            if len(self._spectra) >= 8:
+                self._spectra.pop(next(iter(self._spectra)))
+            g = sfft.fft(self._g, n)
+            self._spectra[n] = g
+        return g
+
+    def _fft_size(self, b: int) -> int:
+        d = self.decimation
+        return d * sfft.next_fast_len(-(-b // d))
+
+    def _band_outputs(self, seg: np.ndarray, n_out: int) -> np.ndarray:
+        """Band-pass outputs v[P + q*D], q < n_out, of one block starting P before."""
+        d = self.decimation
+        n = self._fft_size(seg.size)
+        g = self._spectrum_of_taps(n)
+        if self.kind == "real":
+            xr = sfft.rfft(seg, n)
+            xf = np.empty(n, dtype=np.complex128)
+            xf[: n // 2 + 1] = xr
+            xf[n // 2 + 1 :] = np.conj(xr[1 : (n + 1) // 2][::-1])
+        else:
+            xf = sfft.fft(seg, n)
+        xf *= g
+        k = n // d
+        folded = xf.reshape(d, k).sum(axis=0) if d > 1 else xf
+        v = sfft.ifft(folded)
+        if d > 1:
+            v /= d
+        p = self._pad // d
+        return v[p : p + n_out]
+
+    def process(self, samples) -> np.ndarray:
+        """Demodulate the next block of input.
+
+        Parameters
+        ----------
+        samples : array_like
+            The next input samples (real for kind="real", real or complex for "complex").
+            Any length, including 0.
+
+        Returns
+        -------
+        numpy.ndarray
+            Instantaneous frequency offset from ``carrier_hz`` in Hz, float64, at
+            ``fs_out_hz``. The concatenation over calls does not depend on how the input
+            was split; the first call returns a few samples fewer (filter start-up).
+
+        Raises
+        ------
+        TypeError
+            If complex samples are given to a real demodulator.
+        ValueError
+            If samples is not one-dimensional.
+        """
+        v = self._advance(samples)
+        return self._discriminate(v)
+
+    def process_baseband(self, samples) -> tuple[np.ndarray, np.ndarray]:
+        """Like `process`, also returning the complex baseband at ``fs_out_hz``.
+
+        Returns
+        -------
+        inst_freq_hz : numpy.ndarray
+            As from `process`.
+        baseband : numpy.ndarray
+            Complex baseband samples (mixed by -carrier_hz, filtered, decimated) of this
+            call, starting with the first sample the filter fully covers.
+        """
+        v = self._advance(samples)
+        f = self._discriminate(v)
+        j = np.arange(self._vstart, self._vstart + v.size)
+        return f, v * _nco(self._mix_cycles, j)
+
+    # ----------------------------------------------------------------------------------
+    def _advance(self, samples) -> np.ndarray:
+        x = _as_1d("samples", samples, self.kind)
+        if x.size and not np.all(np.isfinite(x)):
+            raise ValueError("samples must be finite (found NaN or inf)")
+        d = self.decimation
+        buf = np.concatenate((self._hist, x)) if x.size else self._hist
+        m = self._m + x.size
+        j1 = -(-m // d)
+        total = j1 - self._j0
+        out = []
+        pos = 0
+        while total > 0:
+            nb = min(total, self._max_new)
+            b = (nb - 1) * d + self._pad + 1
+            out.append(self._band_outputs(buf[pos : pos + b], nb))
+            pos += nb * d
+            total -= nb
+        self._hist = buf[pos:].copy()
+        self._m = m
+        j0 = self._j0
+        self._j0 = j1
+        v = np.concatenate(out) if out else np.zeros(0, dtype=np.complex128)
+        # Drop outputs whose filter window reaches before the first input sample.
+        skip = max(0, self._first_j - 1 - j0)
+        self._vstart = j0 + skip
+        return v[skip:] if skip else v
+
+    def _discriminate(self, v: np.ndarray) -> np.ndarray:
+        if v.size == 0:
+            return np.zeros(0)
+        if self._last_v is not None:
+            w = np.empty(v.size + 1, dtype=np.complex128)
+            w[0] = self._last_v
+            w[1:] = v
+        else:
+            w = v
+        self._last_v = complex(v[-1])
+        # p = cur * conj(prev) * e^{-jc}: c is the mixer's phase step at the output rate.
+        p = np.conj(w[:-1])
+        p *= self._rot
+        p *= w[1:]
+        big = float(np.max(np.abs(p.view(np.float64))))
+        if big > 1e30 or 0.0 < big < 1e-30:
+            p *= 1.0 / big  # keep float32 in range; the angle does not depend on scale
+        f = _phase_angle(p.real, p.imag).astype(np.float64)
+        f *= self.fs_out_hz / _TWO_PI
+        if not self.droop_compensation:
+            self.samples_out += f.size
+            return f
+        r = np.concatenate((self._tail, f)) if self._tail.size else f
+        if r.size < 3:
+            self._tail = r.copy()
+            return np.zeros(0)
+        y = r[1:-1] * (26.0 / 24.0)
+        y -= r[:-2] * (1.0 / 24.0)
+        y -= r[2:] * (1.0 / 24.0)
+        self._tail = r[-2:].copy()
+        self.samples_out += y.size
+        return y
+
+
+def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarray:
+    """exp(-j 2 pi frac(c * j)) for consecutive integers j, by table and block restarts.
+
+    A table of one block is multiplied by an exactly computed phasor per block, so trig
+    is evaluated for len(j) / table + table samples instead of len(j) and rounding does
+    not accumulate from block to block.
+    """
+    n = j.size
+    if n == 0:
+        return np.zeros(0, dtype=np.complex128)
+    c = float(cycles_per_sample)
+    base = np.exp(-1j * _TWO_PI * c * np.arange(min(table, n)))
+    nblocks = -(-n // base.size)
+    starts = int(j[0]) + base.size * np.arange(nblocks)
+    phase0 = np.mod(c * starts, 1.0)
+    heads = np.exp(-1j * _TWO_PI * phase0)
+    out = (heads[:, None] * base[None, :]).reshape(-1)
+    return out[:n]
+
+
+# --------------------------------------------------------------------------------------
+# Deviation statistics
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class DeviationFigures:
+    """Deviation of an (already filtered) instantaneous-frequency record, in Hz.
+
+    Attributes
+    ----------
+    peak_pos_hz : float
+        Largest value (deviation above the carrier).
+    peak_neg_hz : float
+        Smallest value (deviation below the carrier; negative when the signal swings
+        below it).
+    peak_avg_hz : float
+        (peak_pos_hz - peak_neg_hz) / 2, i.e. (peak+ + |peak-|) / 2.
+    rms_hz : float
+        Root-mean-square about the mean.
+    rms_sqrt2_hz : float
+        rms_hz * sqrt(2): the peak deviation of a sine with that rms.
+    mean_hz : float
+        Mean (carrier offset from the demodulator's carrier_hz).
+    n_samples : int
+        Number of samples used.
+    """
+
+    peak_pos_hz: float
+    peak_neg_hz: float
+    peak_avg_hz: float
+    rms_hz: float
+    rms_sqrt2_hz: float
+    mean_hz: float
+    n_samples: int
+
+
+def _parabolic_peak(x: np.ndarray, i: int) -> float:
+    """Vertex of the parabola through x[i-1], x[i], x[i+1] (x[i] at the ends)."""
+    if i <= 0 or i >= x.size - 1:
+        return float(x[i])
+    a, b, c = float(x[i - 1]), float(x[i]), float(x[i + 1])
+    den = a - 2.0 * b + c
+    if den == 0.0:
+        return b
+    p = 0.5 * (a - c) / den
+    p = max(-0.5, min(0.5, p))
+    return b - 0.25 * (a - c) * p
+
+
+def deviation_figures(inst_freq_hz, *, interpolate_peaks: bool = True) -> DeviationFigures:
+    """Peak, average-peak, RMS and mean deviation of an instantaneous-frequency record.
+
+    Pass the discriminator output *after* the post-demodulation filter (audio band and,
+    where used, de-emphasis): the raw output's extremes are noise spikes. Peaks are taken
+    relative to the demodulator's carrier (0 Hz); subtract ``mean_hz`` first to measure
+    about the actual carrier.
+
+    Parameters
+    ----------
+    inst_freq_hz : array_like
+        Instantaneous frequency offset in Hz (real, finite, 1-D, at least one sample).
+    interpolate_peaks : bool
+        Refine the largest and smallest sample by a parabola through it and its two
+        neighbours, so the peak of a tone sampled at 20 points per cycle is read within
+        0.01% instead of up to 1.2% low (default True).
+
+    Returns
+    -------
+    DeviationFigures
+
+    Raises
+    ------
+    ValueError
+        If the record is empty, not 1-D or not finite.
+    TypeError
+        If it is not real.
+    """
+    x = _as_real_1d("inst_freq_hz", inst_freq_hz)
+    if x.size == 0:
+        raise ValueError("inst_freq_hz is empty (0 samples)")
+    if not np.all(np.isfinite(x)):
+        raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
+    imax = int(np.argmax(x))
+    imin = int(np.argmin(x))
+    if interpolate_peaks:
+        pmax = _parabolic_peak(x, imax)
+        pmin = -_parabolic_peak(-x, imin)
+    else:
+        pmax, pmin = float(x[imax]), float(x[imin])
+    mean = float(np.mean(x))
+    rms = float(np.sqrt(np.mean((x - mean) ** 2)))
+    return DeviationFigures(
+        peak_pos_hz=pmax,
+        peak_neg_hz=pmin,
+        peak_avg_hz=0.5 * (pmax - pmin),
+        rms_hz=rms,
+        rms_sqrt2_hz=rms * math.sqrt(2.0),
+        mean_hz=mean,
+        n_samples=int(x.size),
+    )
+
+
+class DeviationHistogram:
+    """Streaming histogram of instantaneous deviation with bounded memory.
+
+    Bins have a fixed width and edges at integer multiples of it (bin i covers
+    [i*w, (i+1)*w)); the range grows to cover new data. When it would exceed
+    ``max_bins`` the bin width doubles (pairs of bins merge), so memory stays bounded
+    whatever the input.
+
+    Feed it the *filtered* instantaneous frequency, as for `deviation_figures`.
+
+    Parameters
+    ----------
+    bin_hz : float
+        Initial bin width in Hz (default 10 Hz).
+    max_bins : int
+        Upper bound on the number of bins (default 65536).
+
+    Raises
+    ------
+    ValueError
+        If bin_hz <= 0 or max_bins < 16.
+    """
+
+    def __init__(self, bin_hz: float = 10.0, *, max_bins: int = 65536) -> None:
+        self.bin_hz = _positive_finite("bin_hz", bin_hz)
+        if isinstance(max_bins, bool) or not isinstance(max_bins, (int, np.integer)):
+            raise TypeError(f"max_bins must be an int, got {type(max_bins).__name__}")
+        if max_bins < 16:
+            raise ValueError(f"max_bins={max_bins} must be >= 16")
+        self.max_bins = int(max_bins)
+        self._first = 0  # index of counts[0]
+        self._counts = np.zeros(0, dtype=np.int64)
+
+    @property
+    def count(self) -> int:
+        """Number of samples accumulated."""
+        return int(self._counts.sum())
+
+    def _merge(self) -> None:
+        # Pairs (2m, 2m+1) -> m at twice the width; align the first index to even.
+        if self._first % 2:
+            self._counts = np.concatenate(([0], self._counts))
+            self._first -= 1
+        if self._counts.size % 2:
+            self._counts = np.concatenate((self._counts, [0]))
+        self._counts = self._counts.reshape(-1, 2).sum(axis=1)
+        self._first //= 2
+        self.bin_hz *= 2.0
+
+    def update(self, inst_freq_hz) -> None:
+        """Add samples (Hz, finite, 1-D). Empty input is a no-op."""
+        x = _as_real_1d("inst_freq_hz", inst_freq_hz)
+        if x.size == 0:
+            return
+        if not np.all(np.isfinite(x)):
+            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
+        lo_v, hi_v = float(x.min()), float(x.max())
+        while True:
+            lo = math.floor(lo_v / self.bin_hz)
+            hi = math.floor(hi_v / self.bin_hz)
+            if self._counts.size:
+                lo = min(lo, self._first)
+                hi = max(hi, self._first + self._counts.size - 1)
+            if hi - lo + 1 <= self.max_bins:
+                break
+            self._merge()
+        if self._counts.size == 0:
+            self._first = lo
+            self._counts = np.zeros(hi - lo + 1, dtype=np.int64)
+        elif lo < self._first or hi >= self._first + self._counts.size:
+            grown = np.zeros(hi - lo + 1, dtype=np.int64)
+            off = self._first - lo
+            grown[off : off + self._counts.size] = self._counts
+            self._counts = grown
+            self._first = lo
+        idx = np.floor(x / self.bin_hz).astype(np.int64) - self._first
+        np.clip(idx, 0, self._counts.size - 1, out=idx)
+        self._counts += np.bincount(idx, minlength=self._counts.size)
+
+    def exceeded_hz(self, fraction: float) -> float:
+        """|deviation| exceeded by the given fraction of samples (e.g. 0.01 for 1%).
+
+        Linear interpolation inside a bin; resolution is the bin width.
+
+        Raises
+        ------
+        ValueError
+            If fraction is not in (0, 1) or the histogram is empty.
+        """
+        q = _finite("fraction", fraction)
+        if not 0.0 < q < 1.0:
+            raise ValueError(f"fraction={fraction} must be in (0, 1)")
+        total = self.count
+        if total == 0:
+            raise ValueError("histogram is empty (0 samples)")
+        w = self.bin_hz
+        idx = np.arange(self._first, self._first + self._counts.size)
+        # |x| bin of signed bin i: i for i >= 0, -i-1 for i < 0 (edges stay multiples of w).
+        absidx = np.where(idx >= 0, idx, -idx - 1)
+        folded = np.bincount(absidx, weights=self._counts.astype(np.float64))
+        above = np.cumsum(folded[::-1])[::-1]  # samples with |x| >= a*w
+        target = q * total
+        # Largest a with above[a] > target: the level lies inside bin a.
+        a = int(np.nonzero(above > target)[0].max())
+        above_next = above[a + 1] if a + 1 < above.size else 0.0
+        inside = folded[a]
+        frac_in = (target - above_next) / inside if inside > 0 else 0.0
+        return float((a + 1 - frac_in) * w)
+
+    def to_dict(self) -> dict:
+        """JSON-ready contents: bin width, first bin's lower edge, counts."""
+        return {
+            "bin_hz": self.bin_hz,
+            "first_edge_hz": self._first * self.bin_hz,
+            "counts": [int(c) for c in self._counts],
+            "n_samples": self.count,
+        }
+
+
+# --------------------------------------------------------------------------------------
+# ITU-R BS.412 modulation power
+# --------------------------------------------------------------------------------------
+
+
+def modulation_power_dbr(mean_square_deviation_hz2: float) -> float:
+    """Modulation power in dBr relative to a sine of +/-19 kHz peak deviation.
+
+    P = 10 log10(<deltaf^2> / ((19 kHz)^2 / 2)).
+
+    Parameters
+    ----------
+    mean_square_deviation_hz2 : float
+        Mean of the squared instantaneous deviation in Hz^2 (>= 0; 0 gives -inf).
+
+    Returns
+    -------
+    float
+        Power in dBr: a +/-19 kHz sine reads 0.00 dBr, +/-75 kHz reads +11.93 dBr.
+
+    Raises
+    ------
+    ValueError
+        If the value is negative or not finite.
+
+    References
+    ----------
+    ITU-R BS.412, limit of the multiplex power over any 60 s interval.
+    """
+    ms = _nonneg_finite("mean_square_deviation_hz2", mean_square_deviation_hz2)
+    if ms == 0.0:
+        return -math.inf
+    return 10.0 * math.log10(ms / (BS412_REFERENCE_DEVIATION_HZ**2 / 2.0))
+
+
+@dataclass(frozen=True)
+class ModulationPower:
+    """BS.412 modulation power of a record.
+
+    Attributes
+    ----------
+    power_dbr : float
+        Maximum over complete windows, or over the whole record if it is shorter.
+    window_s : float
+        Length of the windows used (the record length when whole_record).
+    n_windows : int
+        Number of complete windows (0 when whole_record).
+    whole_record : bool
+        True when the record was shorter than one window.
+    """
+
+    power_dbr: float
+    window_s: float
+    n_windows: int
+    whole_record: bool
+
+
+class ModulationPowerMeter:
+    """Streaming BS.412 power: mean square per consecutive window, maximum reported.
+
+    Parameters
+    ----------
+    fs_hz : float
+        Sample rate of the instantaneous-frequency input.
+    window_s : float
+        Window length (BS.412: 60 s).
+    """
+
+    def __init__(self, fs_hz: float, *, window_s: float = 60.0) -> None:
+        self.fs_hz = _positive_finite("fs_hz", fs_hz)
+        self.window_s = _positive_finite("window_s", window_s)
+        self._win = max(1, round(self.window_s * self.fs_hz))
+        self._acc = 0.0
+        self._acc_n = 0
+        self._best = -math.inf
+        self._nwin = 0
+        self._all = 0.0
+        self._all_n = 0
+
+    def update(self, inst_freq_hz) -> None:
+        """Add samples of instantaneous deviation in Hz (empty input is a no-op)."""
+        x = _as_real_1d("inst_freq_hz", inst_freq_hz)
+        if x.size == 0:
+            return
+        if not np.all(np.isfinite(x)):
+            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
+        sq = x * x
+        self._all += float(sq.sum())
+        self._all_n += sq.size
+        pos = 0
+        while pos < sq.size:
+            take = min(self._win - self._acc_n, sq.size - pos)
+            self._acc += float(sq[pos : pos + take].sum())
+            self._acc_n += take
+            pos += take
+            if self._acc_n == self._win:
+                self._best = max(self._best, self._acc / self._win)
+                self._nwin += 1
+                self._acc, self._acc_n = 0.0, 0
+
+    def result(self) -> ModulationPower:
+        """The power so far.
+
+        Raises
+        ------
+        ValueError
+            If no samples were given.
+        """
+        if self._all_n == 0:
+            raise ValueError("no samples (0 samples given)")
+        if self._nwin:
+            return ModulationPower(
+                power_dbr=modulation_power_dbr(self._best),
+                window_s=self._win / self.fs_hz,
+                n_windows=self._nwin,
+                whole_record=False,
+            )
+        return ModulationPower(
+            power_dbr=modulation_power_dbr(self._all / self._all_n),
+            window_s=self._all_n / self.fs_hz,
+            n_windows=0,
+            whole_record=True,
+        )
+
+
+def modulation_power(inst_freq_hz, fs_hz: float, *, window_s: float = 60.0) -> ModulationPower:
+    """BS.412 modulation power of a record: maximum over 60 s windows, or whole record.
+
+    Parameters
+    ----------
+    inst_freq_hz : array_like
+        Instantaneous deviation in Hz about the carrier (the multiplex signal).
+    fs_hz : float
+        Its sample rate.
+    window_s : float
+        Window length in seconds (default 60, per BS.412).
+
+    Returns
+    -------
+    ModulationPower
+
+    Raises
+    ------
+    ValueError
+        If the record is empty or a parameter is not positive.
+
+    References
+    ----------
+    ITU-R BS.412: the power over any 60 s shall not exceed that of a +/-19 kHz sine.
+    """
+    meter = ModulationPowerMeter(fs_hz, window_s=window_s)
+    meter.update(inst_freq_hz)
+    return meter.result()
+
+
+# --------------------------------------------------------------------------------------
+# Bessel lines
+# --------------------------------------------------------------------------------------
+
+
+def _line_sums(x: np.ndarray, w0: float, dw: float, kmin: int, kmax: int) -> np.ndarray:
+    """sum_n x[n] exp(-j (w0 + k dw) n) for k = kmin..kmax, by a phasor recurrence."""
+    n = np.arange(x.size)
+    base = x * _nco(w0 / _TWO_PI, n)
+    step = _nco(dw / _TWO_PI, n)
+    out = np.empty(kmax - kmin + 1, dtype=np.complex128)
+    cur = base * _nco(kmin * dw / _TWO_PI, n)
+    for i in range(out.size):
+        out[i] = cur.sum()
+        if i + 1 < out.size:
+            cur *= step
+    return out
+
+
+def _dirichlet(dw: np.ndarray, n: int) -> np.ndarray:
+    """sum_{m<n} exp(j dw m), exactly, for an array of angle steps."""
+    dw = np.asarray(dw, dtype=np.float64)
+    half = 0.5 * dw
+    s = np.sin(half)
+    out = np.empty(dw.shape, dtype=np.complex128)
+    small = np.abs(s) < 1e-12
+    out[small] = n
+    ok = ~small
+    out[ok] = np.exp(1j * half[ok] * (n - 1)) * np.sin(n * half[ok]) / s[ok]
+    return out
+
+
+def fm_line_amplitudes(
+    z, fs_hz: float, carrier_hz: float, mod_tone_hz: float, k_max: int
+) -> np.ndarray:
+    """Amplitudes of the spectral lines at carrier + k * mod_tone, k = -k_max..k_max.
+
+    A least-squares fit of all 2 k_max + 1 lines (and, for real input, their mirror
+    images at negative frequency) with their exact mutual leakage, so lines need not fall
+    on FFT bins and the record need not hold whole modulation cycles.
+
+    Parameters
+    ----------
+    z : array_like
+        Real (beat note) or complex (I/Q) samples.
+    fs_hz : float
+        Sample rate in Hz.
+    carrier_hz : float
+        Carrier frequency in Hz (measure it first; an error of df leaves the fit
+        accurate only while df * record length << 1).
+    mod_tone_hz : float
+        Modulating tone in Hz (> 0).
+    k_max : int
+        Highest line order (>= 0).
+
+    Returns
+    -------
+    numpy.ndarray
+        Peak amplitude of each line, in input units, index k + k_max. For a complex
+        A exp(j(w t + beta sin(wm t))) the line k is A |J_k(beta)|; for a real
+        A cos(...) too.
+
+    Raises
+    ------
+    ValueError
+        If parameters are out of range, a line falls outside (0, fs/2) for real input
+        or outside (-fs/2, fs/2) for complex input, or the record is shorter than needed
+        to resolve the lines (fewer than 2 fs / mod_tone samples).
+    """
+    a = np.asarray(z)
+    if a.ndim != 1:
+        raise ValueError(f"z must be one-dimensional, got shape {a.shape}")
+    if a.dtype.kind not in "biufc":
+        raise TypeError(f"z must be numeric, got dtype {a.dtype}")
+    fs = _positive_finite("fs_hz", fs_hz)
+    fc = _finite("carrier_hz", carrier_hz)
+    fm = _positive_finite("mod_tone_hz", mod_tone_hz)
+    if isinstance(k_max, bool) or not isinstance(k_max, (int, np.integer)):
+        raise TypeError(f"k_max must be an int, got {type(k_max).__name__}")
+    if k_max < 0:
+        raise ValueError(f"k_max={k_max} must be >= 0")
+    real = a.dtype.kind != "c"
+    lo, hi = fc - k_max * fm, fc + k_max * fm
+    if real and not (lo > 0.0 and hi < fs / 2.0):
+        raise ValueError(
+            f"lines carrier_hz={carrier_hz} +/- k_max={k_max} x mod_tone_hz={mod_tone_hz} "
+            f"must lie in (0, fs_hz/2={fs / 2.0}) for real input"
+        )
+    if not real and not (lo > -fs / 2.0 and hi < fs / 2.0):
+        raise ValueError(
+            f"lines carrier_hz={carrier_hz} +/- k_max={k_max} x mod_tone_hz={mod_tone_hz} "
+            f"must lie in (-fs_hz/2, fs_hz/2)"
+        )
+    n = a.size
+    if n < 2.0 * fs / fm:
+        raise ValueError(
+            f"z has {n} samples; at least {math.ceil(2.0 * fs / fm)} (2 modulation "
+            "cycles) are needed"
+        )
+    x = a.astype(np.complex128 if not real else np.float64)
+    w0 = _TWO_PI * fc / fs
+    dw = _TWO_PI * fm / fs
+    ks = np.arange(-k_max, k_max + 1)
+    w = w0 + ks * dw
+    rhs = _line_sums(x, w0, dw, -k_max, k_max)  # E^H x for the positive lines
+    if not real:
+        gram = _dirichlet(w[None, :] - w[:, None], n)
+        coef = np.linalg.solve(gram, rhs)
+        return np.abs(coef)
+    # Real input: model x = sum c_k e^{j w_k n} + conj; unknowns [c, conj(c)].
+    wall = np.concatenate((w, -w))
+    gram = _dirichlet(wall[None, :] - wall[:, None], n)
+    rhs_all = np.concatenate((rhs, np.conj(rhs)))
+    coef = np.linalg.solve(gram, rhs_all)
+    return 2.0 * np.abs(coef[: ks.size])
+
+
+@dataclass(frozen=True)
+class BesselFit:
+    """Least-squares fit of |J_k(beta)| line amplitudes.
+
+    Attributes
+    ----------
+    mod_index : float
+        Fitted modulation index beta.
+    scale : float
+        Fitted unmodulated carrier amplitude (input units).
+    residual : float
+        RMS misfit relative to the RMS line amplitude (0 = perfect).
+    carrier_depth_db : float
+        Carrier line relative to the unmodulated carrier (scale), in dB (negative).
+    nearest_carrier_null : int
+        Which zero of J0 (1, 2, 3, ...) beta is nearest to.
+    nearest_null_mod_index : float
+        That zero (2.40483, 5.52008, ...).
+    peak_deviation_hz : float | None
+        beta * mod_tone_hz when the tone was given.
+    """
+
+    mod_index: float
+    scale: float
+    residual: float
+    carrier_depth_db: float
+    nearest_carrier_null: int
+    nearest_null_mod_index: float
+    peak_deviation_hz: float | None
+
+
+_J0_ZEROS = sspec.jn_zeros(0, 40)
+
+
+def fit_bessel(
+    amplitudes, *, mod_tone_hz: float | None = None, beta_max: float | None = None
+) -> BesselFit:
+    """Fit the modulation index to measured line amplitudes A |J_k(beta)|.
+
+    The overall scale A is unknown and solved in closed form for each beta; the misfit
+    has many local minima in beta, so it is scanned on a fine grid and the best point
+    refined with a bounded scalar search.
+
+    Parameters
+    ----------
+    amplitudes : array_like
+        Line amplitudes for k = -K..K (odd length 2K+1, centre = carrier), e.g. from
+        `fm_line_amplitudes`.
+    mod_tone_hz : float, optional
+        The modulating tone, to report the peak deviation.
+    beta_max : float, optional
+        Upper end of the search (default K + 1: beyond it the lines outside +/-K hold
+        much of the power and the fit is not trustworthy).
+
+    Returns
+    -------
+    BesselFit
+
+    Raises
+    ------
+    ValueError
+        If amplitudes has even length, fewer than 3 lines, negative or non-finite values
+        or is all zero.
+
+    References
+    ----------
+    Line amplitudes J_k(beta) of single-tone FM and the zeros of J0 (Abramowitz & Stegun
+    Table 9.5; DLMF 10.21), evaluated with scipy.special.
+    """
+    a = _as_real_1d("amplitudes", amplitudes)
+    if a.size < 3 or a.size % 2 == 0:
+        raise ValueError(f"amplitudes must have odd length >= 3 (k=-K..K), got {a.size}")
+    if not np.all(np.isfinite(a)) or np.any(a < 0):
+        raise ValueError("amplitudes must be finite and >= 0")
+    energy = float(a @ a)
+    if energy == 0.0:
+        raise ValueError("amplitudes are all zero")
+    kk = (a.size - 1) // 2
+    fm = None if mod_tone_hz is None else _positive_finite("mod_tone_hz", mod_tone_hz)
+    bmax = float(kk + 1) if beta_max is None else _positive_finite("beta_max", beta_max)
+    ks = np.arange(-kk, kk + 1)
+
+    def misfit(beta: float) -> float:
+        j = np.abs(sspec.jv(ks, beta))
+        jj = float(j @ j)
+        return energy - float(a @ j) ** 2 / jj
+
+    grid = np.linspace(0.0, bmax, max(200, int(bmax * 400)) + 1)
+    jgrid = np.abs(sspec.jv(ks[None, :], grid[:, None]))
+    proj = jgrid @ a
+    norm = np.einsum("ij,ij->i", jgrid, jgrid)
+    r = energy - proj**2 / norm
+    i = int(np.argmin(r))
+    step = grid[1] - grid[0]
+    lo, hi = max(0.0, grid[i] - step), min(bmax, grid[i] + step)
+    res = minimize_scalar(misfit, bounds=(lo, hi), method="bounded", options={"xatol": 1e-10})
+    beta = float(res.x) if res.fun <= r[i] else float(grid[i])
+    j = np.abs(sspec.jv(ks, beta))
+    scale = float(a @ j) / float(j @ j)
+    resid = math.sqrt(max(misfit(beta), 0.0) / energy)
+    c0 = float(a[kk])
+    depth = 20.0 * math.log10(c0 / scale) if c0 > 0 else -math.inf
+    nn = int(np.argmin(np.abs(_J0_ZEROS - beta)))
+    return BesselFit(
+        mod_index=beta,
+        scale=scale,
+        residual=resid,
+        carrier_depth_db=depth,
+        nearest_carrier_null=nn + 1,
+        nearest_null_mod_index=float(_J0_ZEROS[nn]),
+        peak_deviation_hz=None if fm is None else beta * fm,
+    )
