@@ -33,9 +33,8 @@ SOUNDDEVICE_HELP = (
     "\"pip install 'swingmeter[audio]'\" (or 'pip install sounddevice')"
 )
 
-# With no buffer for this long the device is taken to have gone away (unplugged,
-# server stopped). Generous: PulseAudio can take a second to start a stream.
-_STALL_S = 3.0
+# Extra wait for the first buffer: sound servers can take a while to start a stream.
+_STARTUP_ALLOWANCE_S = 5.0
 
 
 def _sounddevice():
@@ -261,12 +260,20 @@ class SoundCardSource:
     swap_iq : bool
         In `iq` mode, take I from the second channel and Q from the first.
     block_frames : int
-        Frames per PortAudio buffer and per block (default 4096, 85 ms at 48 kHz).
+        Frames per block handed on (default 4096, 85 ms at 48 kHz). PortAudio chooses its
+        own buffer size (blocksize=0, its most robust setting; a fixed size delayed the
+        first buffer by about 2 s through ALSA's pulse plugin) with a latency of about
+        one block; the consumer joins whole buffers into blocks of at least
+        `block_frames` (shorter only before a loss and at the end).
     queue_blocks : int
-        Bound of the queue between the callback and the consumer (default 64 buffers,
-        5.5 s at 48 kHz with 4096 frames). When full, new buffers are dropped and counted.
+        Bound of the queue between the callback and the consumer, in PortAudio buffers
+        (default 256, several seconds at any usual latency). When it is full, new
+        buffers are dropped and counted.
     duration_s : float or None
         Stop after this many seconds of stream time; None runs until `stop()`.
+    stall_timeout_s : float
+        With no buffer for this long (plus a start-up allowance before the first one)
+        the device is taken to have gone away: DeviceError.
 
     Raises
     ------
@@ -293,8 +300,9 @@ class SoundCardSource:
         meta: StreamMeta | None = None,
         swap_iq: bool = False,
         block_frames: int = 4096,
-        queue_blocks: int = 64,
+        queue_blocks: int = 256,
         duration_s: float | None = None,
+        stall_timeout_s: float = 3.0,
     ) -> None:
         if mode not in MODES:
             raise ValueError(f"mode={mode!r} must be one of {', '.join(MODES)}")
@@ -316,6 +324,9 @@ class SoundCardSource:
         self.block_frames = block_frames
         self.queue_blocks = queue_blocks
         self.duration_s = duration_s
+        if not (math.isfinite(stall_timeout_s) and stall_timeout_s > 0):
+            raise ValueError(f"stall_timeout_s={stall_timeout_s} must be positive")
+        self.stall_timeout_s = float(stall_timeout_s)
         self._meta_in = meta if meta is not None else StreamMeta(source="", fs_hz=self.fs_hz)
         self.meta: StreamMeta | None = None
         self.device_index: int | None = None
@@ -335,7 +346,6 @@ class SoundCardSource:
         # Consumer side.
         self._frames_delivered = 0
         self._blocks_delivered = 0
-        self._next_start = 0
 
     # -- stream set-up -------------------------------------------------------------------
 
@@ -374,7 +384,8 @@ class SoundCardSource:
         try:
             stream = sd.InputStream(
                 samplerate=self.fs_hz,
-                blocksize=self.block_frames,
+                blocksize=0,
+                latency=min(max(self.block_frames / self.fs_hz, 0.01), 0.5),
                 device=index,
                 channels=self.open_channels,
                 dtype="float32",
@@ -487,8 +498,23 @@ class SoundCardSource:
         """
         self.open()
         limit = None if self.duration_s is None else round(self.duration_s * self.fs_hz)
-        stall = max(_STALL_S, 4 * self.block_frames / self.fs_hz)
-        last = time.monotonic()
+        pending: list[np.ndarray] = []
+        pending_start = 0
+        pending_frames = 0
+        pending_lost = False
+        deadline = time.monotonic() + self.stall_timeout_s + _STARTUP_ALLOWANCE_S
+
+        def flush() -> Block:
+            nonlocal pending, pending_frames
+            data = pending[0] if len(pending) == 1 else np.concatenate(pending)
+            pending, pending_frames = [], 0
+            samples = self._to_samples(data)
+            self._frames_delivered += len(samples)
+            self._blocks_delivered += 1
+            return Block(
+                samples=samples, start=pending_start, meta=self.meta, overflow=pending_lost
+            )
+
         try:
             while not self._stop.is_set():
                 try:
@@ -497,24 +523,29 @@ class SoundCardSource:
                     stream = self._stream
                     if stream is None:
                         return
-                    if not stream.active or time.monotonic() - last > stall:
+                    if not stream.active or time.monotonic() > deadline:
                         raise DeviceError(
                             f"input device {self.meta.source!r} stopped delivering samples "
                             f"(unplugged, or the sound server went away?)"
                         ) from None
                     continue
-                last = time.monotonic()
+                deadline = time.monotonic() + self.stall_timeout_s
                 if limit is not None and start >= limit:
-                    return
-                samples = self._to_samples(data)
-                if limit is not None and start + len(samples) > limit:
-                    samples = samples[: limit - start]
-                self._frames_delivered += len(samples)
-                self._blocks_delivered += 1
-                self._next_start = start + len(samples)
-                yield Block(samples=samples, start=start, meta=self.meta, overflow=bool(lost))
-                if limit is not None and self._next_start >= limit:
-                    return
+                    break
+                if limit is not None and start + len(data) > limit:
+                    data = data[: limit - start]
+                if pending and (lost or start != pending_start + pending_frames):
+                    yield flush()
+                if not pending:
+                    pending_start, pending_lost = start, bool(lost)
+                pending.append(data)
+                pending_frames += len(data)
+                if pending_frames >= self.block_frames:
+                    yield flush()
+                if limit is not None and start + len(data) >= limit:
+                    break
+            if pending:
+                yield flush()
         finally:
             self.close()
 
