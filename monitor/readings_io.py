@@ -268,7 +268,10 @@ def readings_from_recording(path: str | Path, *, gate_s: float = 1.0) -> Reading
         from monitor.engine import analyze_file
     except ImportError:
         raise InputError(f"{path}: recordings cannot be analysed by this build") from None
-    analysis = analyze_file(str(path), gate_s=gate_s)
+    try:
+        analysis = analyze_file(str(path), gate_s=gate_s)
+    except ValueError as exc:
+        raise InputError(f"{path}: {exc}") from None
     rows = []
     for i, r in enumerate(analysis.readings):
         d = {
