@@ -341,7 +341,10 @@ def _reason(exc: BaseException, path: Path) -> str:
         return f"the disk is full ({free} bytes free)"
     if isinstance(exc, OSError) and exc.strerror:
         return exc.strerror
-    return text or "write failed (disk full or file size limit reached?)"
+    if not text or text.rstrip(".").lower() == "system error":
+        # libsndfile reports ENOSPC / EFBIG as a bare "System error".
+        return "the disk is full or a file size limit was reached (system error)"
+    return text
 
 
 # -- the recorder ---------------------------------------------------------------------------
