@@ -4,7 +4,7 @@ The counter already knows the fundamental frequency, so the figures come from IE
 1057 / 1241 style least-squares fits at known frequencies (three-parameter sine fits at the
 fundamental, at its harmonics and at the mains-hum lines, plus DC), solved jointly. The
 noise is what the fit leaves over. SFDR needs to see every spur, so it comes from a
-Kaiser-windowed spectrum of (at most) the first 8192 samples.
+Kaiser-windowed spectrum of (at most) the first 16384 samples.
 
 Speed: the engine calls `measure_quality` once per gate, so trigonometric functions are
 never evaluated over the full record. The record is folded into an (R, M) matrix, n = rM + m,
@@ -35,14 +35,14 @@ __all__ = [
 
 Mains = Literal["auto", 50, 60] | None
 
-#: Kaiser beta of the SFDR spectrum: highest sidelobe about -188 dB, so window leakage
-#: never limits even an ideal 24-bit signal; main lobe about +/-7.7 bins wide.
-_KAISER_BETA = 24.0
+#: Kaiser beta of the SFDR spectrum: highest sidelobe about -155 dB, so window leakage
+#: does not limit an ideal 16-bit (or a real 24-bit) signal; main lobe +/-6.5 bins wide.
+_KAISER_BETA = 20.0
 #: Half-width (bins) of the region around a line that belongs to that line.
-_LOBE_BINS = 9
-#: Longest spectrum segment (samples): 8192 keeps the FFT a small part of the budget and
-#: resolves 5.9 Hz at 48 kHz.
-_SPECTRUM_MAX = 8192
+_LOBE_BINS = 8
+#: Longest spectrum segment (samples): 2.9 Hz bins at 48 kHz, so a 50 Hz spur clears the
+#: DC region.
+_SPECTRUM_MAX = 16384
 #: Number of mains-hum harmonics fitted (1 .. _HUM_HARMONICS times 50 or 60 Hz).
 _HUM_HARMONICS = 6
 #: Dynamic range floor of the ratios: powers below this fraction of the total power are
@@ -371,31 +371,35 @@ def _kaiser(length: int) -> tuple[np.ndarray, float]:
     return win, float(np.dot(win, win))
 
 
-def _largest_spur(x: np.ndarray, fs_hz: float, f0_hz: float) -> tuple[float, float]:
+def _largest_spur(x: np.ndarray, fs_hz: float, f0_hz: float, dc: float) -> tuple[float, float]:
     """Power (mean square) and frequency of the largest spectral line outside DC and f0."""
     from scipy import fft
 
     length = min(x.size, _SPECTRUM_MAX)
     win, wsq = _kaiser(length)
-    seg = x[:length]
-    # Removing the mean takes the DC line out exactly, so only bins 0..1 need excluding
-    # and a 50 Hz spur stays visible even in a short gate.
-    spec = fft.rfft((seg - seg.mean()) * win)
+    # Taking out the fitted DC (not the segment mean, which a partial cycle of the tone
+    # would bias) removes most of the DC lobe.
+    spec = fft.rfft((x[:length] - dc) * win)
     pw = spec.real**2 + spec.imag**2
     h = _LOBE_BINS
     k0 = int(round(f0_hz * length / fs_hz))
-    pw[:2] = -1.0
-    saved = pw[max(k0 - h, 0) : k0 + h + 1].copy()
-    pw[max(k0 - h, 0) : k0 + h + 1] = -1.0
+    lo0, hi0 = max(k0 - h, 0), k0 + h + 1
+    saved = pw[lo0:hi0].copy()
+    pw[lo0:hi0] = -1.0
+    saved_dc = pw[: h + 1].copy()
+    pw[: h + 1] = -1.0
     kp = int(np.argmax(pw))
     if pw[kp] < 0:  # nothing outside the excluded regions (very short record)
         return 0.0, math.nan
-    pw[max(k0 - h, 0) : k0 + h + 1] = saved
-    pw[:2] = 0.0
+    # The spur's own lobe, without what belongs to DC or the fundamental.
+    pw[: h + 1] = saved_dc
+    pw[lo0:hi0] = saved
     lo, hi = max(kp - h, 0), min(kp + h + 1, pw.size)
+    mask = np.ones(hi - lo, dtype=bool)
+    mask[: max(h + 1 - lo, 0)] = False
+    mask[max(lo0 - lo, 0) : max(hi0 - lo, 0)] = False
     # Parseval: a real line of mean square P puts L * P * sum(w^2) / 2 into its lobe.
-    lobe = pw[lo:hi]
-    power = 2.0 * float(lobe[lobe > 0].sum()) / (length * wsq)
+    power = 2.0 * float(pw[lo:hi][mask].sum()) / (length * wsq)
     return power, kp * fs_hz / length
 
 
@@ -489,8 +493,8 @@ def measure_quality(
     Mains lines within 1/T (T = record length) of the fundamental or a fitted harmonic
     are dropped, so a line is never counted twice. With mains="auto" both the 50 Hz and
     the 60 Hz family are fitted and the one holding more power is kept (the other's power
-    stays in the noise). SFDR uses a Kaiser (beta 24, sidelobes < -185 dB) spectrum of
-    the first min(len(x), 8192) samples. Powers below 1e-20 of the total power are
+    stays in the noise). SFDR uses a Kaiser (beta 20, sidelobes < -150 dB) spectrum of
+    the first min(len(x), 16384) samples. Powers below 1e-20 of the total power are
     floored there, so ratios stay finite (a resolution far beyond 32-bit audio).
 
     Parameters
@@ -619,7 +623,7 @@ def measure_quality(
         resid = float(np.dot(r, r))
     noise_power = (max(resid, 0.0) + other_energy) / max(n - n_par, 1)
 
-    spur_power, spur_hz = _largest_spur(a, fs, f0)
+    spur_power, spur_hz = _largest_spur(a, fs, f0, float(b[0]))
     if spur_power == 0.0:
         warnings.warn(
             f"x has only {n} samples: too short to search for spurs; sfdr_db is a floor",

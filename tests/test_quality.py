@@ -1,0 +1,342 @@
+"""Tests of dsp.quality against published figures, closed forms, sox and numpy's LAPACK."""
+
+from __future__ import annotations
+
+import math
+import os
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from dsp.quality import (
+    LevelFigures,
+    QualityFigures,
+    combine_quality,
+    measure_level,
+    measure_quality,
+)
+
+FS = 48000.0
+
+
+def tone(f_hz: float, n: int, amp: float = 1.0, phase: float = 0.3, fs: float = FS) -> np.ndarray:
+    return amp * np.sin(2 * np.pi * f_hz * np.arange(n) / fs + phase)
+
+
+def sox_wav(tmp_path: Path, *effect: str, rate: int = 48000, bits: int = 24) -> np.ndarray:
+    """Generate a signal with sox (an independent generator) and read it with soundfile."""
+    import soundfile as sf
+
+    if shutil.which("sox") is None:
+        if os.environ.get("CI") == "true":
+            pytest.fail("sox is not installed (needed in CI)")
+        pytest.skip("sox is not installed")
+    out = tmp_path / "sox.wav"
+    # -D: no dither, so the file holds sox's own waveform rounded to 24 bits.
+    subprocess.run(
+        ["sox", "-D", "-n", "-r", str(rate), "-b", str(bits), str(out), "synth", *effect],
+        check=True,
+        capture_output=True,
+    )
+    x, fs = sf.read(out, dtype="float64")
+    assert fs == rate
+    return x
+
+
+class TestMeasureLevel:
+    def test_sox_sine_level(self, tmp_path):
+        # sox told "vol 0.5": amplitude 0.5, i.e. 20 log10(0.5) = -6.02 dBFS (AES17:
+        # full-scale sine = 0 dBFS). Tolerance 0.05 dB.
+        x = sox_wav(tmp_path, "2", "sine", "1000", "vol", "0.5")
+        lv = measure_level(x)
+        assert isinstance(lv, LevelFigures)
+        assert lv.rms_dbfs == pytest.approx(-6.02, abs=0.05)
+        assert lv.peak_dbfs == pytest.approx(-6.02, abs=0.05)
+        assert lv.clipped_samples == 0
+        assert lv.n_samples == 96000
+        assert abs(lv.dc_offset) < 1e-6
+
+    def test_square_reads_plus_3_db(self):
+        # AES17 convention (common practice): a full-scale square is 3.01 dB above a
+        # full-scale sine; every sample sits at full scale, so all count as clipped.
+        x = np.where(np.arange(4800) % 48 < 24, 1.0, -1.0)
+        lv = measure_level(x)
+        assert lv.rms_dbfs == pytest.approx(10 * math.log10(2), abs=1e-9)
+        assert lv.peak_dbfs == pytest.approx(0.0, abs=1e-12)
+        assert lv.clipped_samples == 4800
+
+    def test_full_scale_and_offset(self):
+        # 16-bit integer samples against a full scale of 32768 (common practice).
+        x = np.round(tone(1000, 48000, amp=16384, phase=np.pi / 2)).astype(np.int16) + 100
+        lv = measure_level(x, full_scale=32768)
+        assert lv.dc_offset == pytest.approx(100.0, abs=0.01)
+        assert lv.peak_dbfs == pytest.approx(20 * math.log10(16484 / 32768), abs=1e-3)
+
+    def test_clip_count(self):
+        x = np.array([0.0, 0.5, 0.9989, 0.999, -1.0, 1.0])
+        assert measure_level(x).clipped_samples == 3
+        assert measure_level(x, clip_fraction=0.5).clipped_samples == 5
+
+    def test_silence_is_minus_inf_not_nan(self):
+        lv = measure_level(np.zeros(100))
+        assert lv.rms_dbfs == -math.inf
+        assert lv.peak_dbfs == -math.inf
+
+    def test_raises(self):
+        with pytest.raises(ValueError, match="empty"):
+            measure_level(np.array([]))
+        with pytest.raises(ValueError, match="1-D"):
+            measure_level(np.zeros((2, 3)))
+        with pytest.raises(ValueError, match="non-finite"):
+            measure_level(np.array([0.0, np.nan]))
+        with pytest.raises(ValueError, match="full_scale=0"):
+            measure_level(np.ones(3), full_scale=0)
+        with pytest.raises(ValueError, match=r"clip_fraction=1\.5"):
+            measure_level(np.ones(3), clip_fraction=1.5)
+        with pytest.raises(TypeError, match="real numeric"):
+            measure_level(np.ones(3, dtype=complex))
+
+
+def brute_force_powers(x, fs, f0, n_harm, hum_hz):
+    """Explicit design matrix solved by numpy's LAPACK lstsq (the reference)."""
+    n = np.arange(x.size)
+    lines = [f0 * k for k in range(1, n_harm + 1) if f0 * k <= fs / 2] + list(hum_hz)
+    cols = [np.ones(x.size)]
+    for f in lines:
+        cols += [np.cos(2 * np.pi * f * n / fs), np.sin(2 * np.pi * f * n / fs)]
+    a = np.array(cols).T
+    b, *_ = np.linalg.lstsq(a, x, rcond=None)
+    power = [
+        np.mean((a[:, 1 + 2 * i : 3 + 2 * i] @ b[1 + 2 * i : 3 + 2 * i]) ** 2)
+        for i in range(len(lines))
+    ]
+    resid = x - a @ b
+    return power, float(resid @ resid) / (x.size - a.shape[1])
+
+
+class TestMeasureQuality:
+    @pytest.mark.parametrize(
+        ("f_hz", "n"),
+        [(1234.5678, 48000), (997.0, 48000), (1234.5678, 4800)],
+        ids=["non-coherent", "coherent-prime-cycles", "short-gate"],
+    )
+    def test_ideal_16_bit_sine(self, f_hz, n):
+        # IEEE Std 1241: an ideally quantised full-scale N-bit sine has
+        # SINAD = 6.02 N + 1.76 = 98.09 dB and ENOB = N = 16 (references.md [seen]).
+        # Tolerances 0.3 dB and 0.05 bit. 997 cycles in 48000 samples (coprime) is the
+        # coherent case of IEEE 1241 with every code phase distinct.
+        x = np.round(tone(f_hz, n) * 32767) / 32767
+        q = measure_quality(x, FS, fundamental_hz=f_hz)
+        assert isinstance(q, QualityFigures)
+        assert q.sinad_db == pytest.approx(98.09, abs=0.3)
+        assert q.enob_bits == pytest.approx(16.0, abs=0.05)
+        # The window must not limit SFDR: the largest spur holds less than all of N + D.
+        assert q.sfdr_db > q.sinad_db
+        # Powers are mean squares over the record: a partial last cycle moves the
+        # fundamental's by about 1/(4 pi cycles), 0.0015 dB for 123.5 cycles.
+        assert q.fundamental_dbfs == pytest.approx(0.0, abs=0.005)
+
+    def test_12_db_sinad(self):
+        # TIA-603 receiver convention: SINAD = (S+N+D)/(N+D); at 12 dB SINAD, N+D is
+        # 25.1 % of the total voltage (references.md [computed]). Noise set from the
+        # definition; tolerance 0.2 dB (sampling spread of a 1 s white-noise power is
+        # 0.03 dB rms).
+        rng = np.random.default_rng(12)
+        s = 0.5**2 / 2
+        sigma = math.sqrt(s / (10**1.2 - 1))
+        x = tone(1000, 48000, amp=0.5) + sigma * rng.standard_normal(48000)
+        q = measure_quality(x, FS, fundamental_hz=1000, mains=None)
+        assert q.sinad_db == pytest.approx(12.0, abs=0.2)
+        assert q.thd_n_percent == pytest.approx(25.1, abs=0.6)
+
+    def test_snr_of_tone_in_known_noise(self):
+        # SNR = (A^2/2) / sigma^2 for a sine of amplitude A in white noise of variance
+        # sigma^2 (definition); harmonics must not count as noise. Tolerance 0.1 dB.
+        rng = np.random.default_rng(7)
+        a, sigma = 0.5, 1e-3
+        x = tone(1500.25, 48000, amp=a) + tone(3000.5, 48000, amp=0.01, phase=1.0)
+        x = x + sigma * rng.standard_normal(48000)
+        q = measure_quality(x, FS, fundamental_hz=1500.25, mains=None)
+        assert q.snr_db == pytest.approx(10 * math.log10(a**2 / 2 / sigma**2), abs=0.1)
+        assert q.noise_power == pytest.approx(sigma**2, rel=0.03)
+
+    def test_thd_of_known_harmonics(self):
+        # THD = rss(harmonic amplitudes 2..k) / fundamental amplitude (IEEE Std 1241
+        # definition): closed form for these amplitudes; 1e-4 relative.
+        amps = {1: 0.4, 2: 0.004, 3: 0.002, 5: 0.0008, 10: 0.0001}
+        x = sum(tone(1000 * k, 48000, amp=v, phase=0.1 * k) for k, v in amps.items())
+        q = measure_quality(x, FS, fundamental_hz=1000)
+        expected = 100 * math.sqrt(sum(v**2 for k, v in amps.items() if k > 1)) / 0.4
+        assert q.thd_percent == pytest.approx(expected, rel=1e-4)
+        assert q.n_harmonics_used == 9
+        # No noise: SINAD is set by the harmonics alone.
+        assert q.sinad_db == pytest.approx(20 * math.log10(100 / expected), abs=0.01)
+
+    def test_harmonics_above_nyquist_skipped(self):
+        # f0 = 7 kHz at 48 kHz: harmonics 2 and 3 (14, 21 kHz) lie below fs/2, the 4th
+        # (28 kHz) does not.
+        x = tone(7000, 4800)
+        assert measure_quality(x, FS, fundamental_hz=7000).n_harmonics_used == 2
+        assert measure_quality(x, FS, fundamental_hz=7000, n_harmonics=2).n_harmonics_used == 1
+
+    def test_sox_square_noncoherent(self, tmp_path):
+        # sox's "square" is a plain two-level wave (not band-limited: every sample is
+        # +vol or -vol; checked here). At 1234.5 Hz the aliases miss the harmonic
+        # frequencies, so harmonics 3..9 keep the Fourier-series amplitudes 4/(pi k):
+        # THD = 100 sqrt(sum_{k=3,5,7,9} 1/k^2) = 42.88 %. Tolerance 0.05 %.
+        x = sox_wav(tmp_path, "2", "square", "1234.5", "vol", "0.5")
+        assert np.allclose(np.abs(x), 0.5, atol=1e-6)
+        q = measure_quality(x, FS, fundamental_hz=1234.5, mains=None)
+        expected = 100 * math.sqrt(sum(1 / k**2 for k in (3, 5, 7, 9)))
+        assert q.thd_percent == pytest.approx(expected, abs=0.05)
+        # Fundamental of a +/-0.5 square: amplitude 0.5 * 4/pi (Fourier series).
+        assert q.fundamental_power == pytest.approx((2 / math.pi) ** 2 / 2, rel=1e-3)
+
+    def test_sox_square_coherent(self, tmp_path):
+        # At 1000 Hz the period is 48 samples and every alias lands on a harmonic: the
+        # sampled square's DFT gives harmonic amplitudes proportional to 1/sin(pi k / 48)
+        # (Fourier series of the sampled wave, closed form). Tolerance 0.05 %.
+        x = sox_wav(tmp_path, "2", "square", "1000", "vol", "0.5")
+        q = measure_quality(x, FS, fundamental_hz=1000, mains=None)
+        p = 48
+        expected = 100 * math.sqrt(
+            sum((math.sin(math.pi / p) / math.sin(math.pi * k / p)) ** 2 for k in (3, 5, 7, 9))
+        )
+        assert q.thd_percent == pytest.approx(expected, abs=0.05)
+
+    @pytest.mark.parametrize("mains_hz", [50.0, 60.0])
+    def test_hum_found_at_its_level(self, mains_hz):
+        # Hum of known amplitudes at the mains frequency and its 3rd harmonic, 1 kHz tone,
+        # light noise: hum_db = 10 log10(sum a_m^2 / a_1^2) (definition). 0.05 dB.
+        rng = np.random.default_rng(int(mains_hz))
+        x = tone(1000, 48000, amp=0.5)
+        x = x + tone(mains_hz, 48000, amp=0.005, phase=0.7)
+        x = x + tone(3 * mains_hz, 48000, amp=0.002, phase=2.0)
+        x = x + 1e-4 * rng.standard_normal(48000)
+        q = measure_quality(x, FS, fundamental_hz=1000)
+        assert q.hum_hz == mains_hz
+        hum = 0.005**2 + 0.002**2
+        assert q.hum_db == pytest.approx(10 * math.log10(hum / 0.5**2), abs=0.05)
+        assert q.hum_dbfs == pytest.approx(10 * math.log10(hum), abs=0.05)
+        # Forcing the right mains gives the same; forcing none puts the hum in the noise.
+        forced = measure_quality(x, FS, fundamental_hz=1000, mains=int(mains_hz))
+        assert forced.hum_db == pytest.approx(q.hum_db, abs=1e-9)
+        off = measure_quality(x, FS, fundamental_hz=1000, mains=None)
+        assert off.hum_hz is None and off.hum_db == -math.inf
+        assert off.snr_db == pytest.approx(10 * math.log10(0.125 / (hum / 2 + 1e-8)), abs=0.05)
+
+    def test_hum_on_a_harmonic_not_counted_twice(self):
+        # f0 = 100 Hz with 50 Hz mains: hum lines 100, 200, 300 Hz coincide with signal
+        # lines and are left to the signal fit; only 50, 150, 250 Hz are hum.
+        x = tone(100, 48000, amp=0.5) + tone(200, 48000, amp=0.01) + tone(150, 48000, amp=0.003)
+        q = measure_quality(x, FS, fundamental_hz=100, mains=50)
+        assert q.thd_percent == pytest.approx(2.0, rel=1e-4)  # 0.01 / 0.5
+        assert q.hum_power == pytest.approx(0.003**2 / 2, rel=1e-4)
+        parts = q.fundamental_power + q.harmonic_power + q.hum_power + q.dc_power
+        assert parts == pytest.approx(q.total_power, rel=1e-6)
+
+    def test_sfdr_of_a_known_spur(self):
+        # A non-harmonic spur 120 dB below the fundamental in a double-precision tone:
+        # SFDR = 120 dB by construction; the Kaiser window (sidelobes < -150 dB) must not
+        # limit it. Tolerance 0.2 dB.
+        x = tone(1000.3, 48000, amp=0.9) + tone(7321.7, 48000, amp=0.9e-6, phase=1.1)
+        q = measure_quality(x, FS, fundamental_hz=1000.3)
+        assert q.sfdr_db == pytest.approx(120.0, abs=0.2)
+        assert q.spur_hz == pytest.approx(7321.7, abs=FS / 16384)
+
+    @pytest.mark.parametrize(
+        ("f0", "n", "fs"),
+        [
+            (1234.5678, 48000, 48000.0),  # the usual gate
+            (12000.0, 4800, 48000.0),  # 2nd harmonic exactly at fs/2 (sine column vanishes)
+            (3990.0, 1001, 8000.0),  # fundamental near fs/2, odd length
+            (31.0, 2000, 48000.0),  # 1.3 cycles: strongly non-orthogonal columns
+            (100.2, 4801, 48000.0),  # hum lines next to signal lines
+        ],
+    )
+    def test_agrees_with_lapack_lstsq(self, f0, n, fs):
+        # Reference: the same IEEE 1057 least-squares model solved on the explicit design
+        # matrix by numpy.linalg.lstsq (LAPACK). Relative 1e-6 on each power.
+        rng = np.random.default_rng(3)
+        x = (
+            tone(f0, n, 0.5, fs=fs)
+            + tone(2 * f0, n, 0.01, 1.0, fs=fs)
+            + tone(50, n, 0.003, fs=fs)
+            + 1e-3 * rng.standard_normal(n)
+            + 0.01
+        )
+        q = measure_quality(x, fs, fundamental_hz=f0, n_harmonics=3, mains=50)
+        lines = [f0 * k for k in range(1, 4) if f0 * k <= fs / 2]
+        hum = [
+            50.0 * m
+            for m in range(1, 7)
+            if 50.0 * m < fs / 2 and min(abs(50.0 * m - h) for h in lines) >= fs / n
+        ]
+        power, noise = brute_force_powers(x, fs, f0, 3, hum)
+        assert q.fundamental_power == pytest.approx(power[0], rel=1e-6)
+        assert q.harmonic_power == pytest.approx(sum(power[1 : len(lines)]), rel=1e-6, abs=1e-15)
+        assert q.hum_power == pytest.approx(sum(power[len(lines) :]), rel=1e-6, abs=1e-15)
+        assert q.noise_power == pytest.approx(noise, rel=1e-3)
+
+    def test_raises(self):
+        x = tone(1000, 480)
+        with pytest.raises(ValueError, match="fs_hz=0"):
+            measure_quality(x, 0, fundamental_hz=1000)
+        with pytest.raises(ValueError, match="fs_hz=inf"):
+            measure_quality(x, math.inf, fundamental_hz=1000)
+        with pytest.raises(ValueError, match="fundamental_hz=24000"):
+            measure_quality(x, FS, fundamental_hz=24000)
+        with pytest.raises(ValueError, match="fundamental_hz=-5"):
+            measure_quality(x, FS, fundamental_hz=-5)
+        with pytest.raises(ValueError, match="n_harmonics=0"):
+            measure_quality(x, FS, fundamental_hz=1000, n_harmonics=0)
+        with pytest.raises(ValueError, match="mains=55"):
+            measure_quality(x, FS, fundamental_hz=1000, mains=55)
+        with pytest.raises(ValueError, match="1-D"):
+            measure_quality(np.zeros((2, 480)), FS, fundamental_hz=1000)
+        with pytest.raises(ValueError, match="non-finite"):
+            measure_quality(np.array([0.0, np.inf, 1.0]), FS, fundamental_hz=1000)
+        with pytest.raises(ValueError, match="empty"):
+            measure_quality(np.array([]), FS, fundamental_hz=1000)
+        with pytest.raises(TypeError, match="n_harmonics"):
+            measure_quality(x, FS, fundamental_hz=1000, n_harmonics=2.5)
+
+
+class TestCombineQuality:
+    def test_identical_gates_equal_one_gate(self):
+        rng = np.random.default_rng(1)
+        x = tone(1000, 4800, 0.5) + 1e-3 * rng.standard_normal(4800)
+        one = measure_quality(x, FS, fundamental_hz=1000)
+        both = combine_quality([one, one, one])
+        for field in ("snr_db", "sinad_db", "thd_percent", "enob_bits", "sfdr_db", "hum_db"):
+            assert getattr(both, field) == pytest.approx(getattr(one, field), rel=1e-12)
+        assert both.n_samples == 3 * 4800
+        assert both.hum_hz == one.hum_hz
+
+    def test_power_average_matches_whole_record(self):
+        # Gates of unequal noise: the summary's SINAD is that of the whole record (power
+        # average), not the mean of the gates' dB values. Reference: the whole record
+        # measured at once; tolerance 0.05 dB.
+        rng = np.random.default_rng(2)
+        n = 9600
+        x = tone(1000, 4 * n, 0.5)
+        sig = np.repeat([1e-4, 1e-3, 3e-3, 1e-2], n)
+        x = x + sig * rng.standard_normal(4 * n)
+        gates = [measure_quality(x[i * n : (i + 1) * n], FS, fundamental_hz=1000) for i in range(4)]
+        whole = measure_quality(x, FS, fundamental_hz=1000)
+        summary = combine_quality(gates)
+        assert summary.sinad_db == pytest.approx(whole.sinad_db, abs=0.05)
+        assert summary.sinad_db < np.mean([g.sinad_db for g in gates]) - 3
+
+    def test_raises(self):
+        q = measure_quality(tone(1000, 480), FS, fundamental_hz=1000)
+        q8 = measure_quality(tone(1000, 480, fs=8000), 8000, fundamental_hz=1000)
+        with pytest.raises(ValueError, match="empty"):
+            combine_quality([])
+        with pytest.raises(TypeError, match="QualityFigures"):
+            combine_quality([q, 1.0])
+        with pytest.raises(ValueError, match="different sample rates"):
+            combine_quality([q, q8])
