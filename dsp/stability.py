@@ -974,26 +974,29 @@ def noise_hint(
     """
 
     def fit(c: AllanCurve) -> float:
-        if len(c.taus_s) < 2:
+        # Zero deviations (constant or periodic readings) have no slope: left out.
+        v = np.asarray(c.values, dtype=float)
+        ok = v > 0
+        if ok.sum() < 2:
             return math.nan
-        lt, lv = np.log(c.taus_s), np.log(np.maximum(c.values, 1e-300))
-        w = np.sqrt(np.maximum(np.asarray(c.edf, float), 1e-9))
+        lt, lv = np.log(np.asarray(c.taus_s)[ok]), np.log(v[ok])
+        w = np.sqrt(np.maximum(np.asarray(c.edf, float)[ok], 1e-9))
         return float(np.polyfit(lt, lv, 1, w=w)[0])
+
+    def local(c: AllanCurve, i: int) -> float:
+        if i + 1 >= len(c.taus_s) or not (c.values[i] > 0 and c.values[i + 1] > 0):
+            return math.nan
+        return math.log(c.values[i + 1] / c.values[i]) / math.log(c.taus_s[i + 1] / c.taus_s[i])
 
     mu, mu_mod = fit(adev), fit(mdev)
     per_tau = []
     for i in range(len(adev.taus_s) - 1):
-        s = math.log(adev.values[i + 1] / adev.values[i]) / math.log(
-            adev.taus_s[i + 1] / adev.taus_s[i]
-        )
+        s = local(adev, i)
+        if not math.isfinite(s):
+            continue
         j = int(np.argmin(np.abs(np.log(np.asarray(mdev.taus_s) / adev.taus_s[i]))))
-        if j + 1 < len(mdev.taus_s):
-            sm = math.log(mdev.values[j + 1] / mdev.values[j]) / math.log(
-                mdev.taus_s[j + 1] / mdev.taus_s[j]
-            )
-        else:
-            sm = s
-        per_tau.append((float(adev.taus_s[i]), _slope_type(s, sm)))
+        sm = local(mdev, j)
+        per_tau.append((float(adev.taus_s[i]), _slope_type(s, sm if math.isfinite(sm) else s)))
     if not math.isfinite(mu):
         return NoiseHint("unknown", mu, mu_mod, "too few taus for a slope", tuple(per_tau))
     mm = mu_mod if math.isfinite(mu_mod) else mu
