@@ -66,8 +66,12 @@ class ToneEstimate:
     offset : float
         Fitted DC offset.
     snr_db : float
-        Per-sample SNR eta = A^2 / (2 sigma^2) of the fit, dB; sigma^2 is the residual
-        variance (noise plus anything that is not the tone, e.g. harmonics).
+        Per-sample SNR eta = A^2 / (2 sigma^2), dB, where sigma^2 is the white-noise
+        variance equivalent to the noise density near the tone (harmonics and distant
+        tones do not count; see `_Gate.local_noise_variance`).
+    gate_snr_db : float
+        N * eta in dB: the gate's integrated SNR, which sets the threshold (below about
+        15-20 dB outliers appear).
     n_samples : int
         Samples used.
     acquired : bool
@@ -84,6 +88,7 @@ class ToneEstimate:
     t_ref_s: float
     offset: float
     snr_db: float
+    gate_snr_db: float
     n_samples: int
     acquired: bool
 
@@ -189,6 +194,51 @@ class _Gate:
         m1 = (float(g0[0].real), float(g1[0].imag), float(g2[0].real))
         m2 = (float(g0[1].real), float(g1[1].imag), float(g2[1].real))
         return p0, p1, m1, m2
+
+    def local_noise_variance(self, omega: float, a: float, b: float, d: float) -> float | None:
+        """White-noise variance equivalent to the noise density near the tone.
+
+        Each complete row is Hann-windowed and demodulated at `omega`; the fitted model's
+        share (tone, its image at -omega and the offset) is removed exactly, and what is
+        left is noise within about +/-2 fs/M of the tone. Distant tones and harmonics fall
+        in the window's sidelobes, so they do not count as noise; the frequency estimate's
+        variance depends on the noise density at the tone (asymptotically, in coloured
+        noise too), which is what this measures. None when there are too few rows.
+        """
+        rows = self.r if self.r * self.m == self.n else self.r - 1
+        if rows < 8:
+            return None
+        w = _hann_row(self.m)
+        thetas = np.array([-omega, -2.0 * omega])
+        ec = np.exp(1j * np.outer(thetas, self.v))  # (2, M)
+        wc = w * ec[0]
+        basis = np.empty((self.m, 2))
+        basis[:, 0] = wc.real
+        basis[:, 1] = wc.imag
+        q = self.rows[:rows] @ basis
+        u = self.u[:rows]
+        er1 = np.exp(-1j * omega * u)
+        y = (q[:, 0] + 1j * q[:, 1]) * er1
+        w0 = w.sum()
+        w1 = np.dot(w, ec[0])
+        w2 = np.dot(w, ec[1])
+        model = 0.5 * (a - 1j * b) * w0 + 0.5 * (a + 1j * b) * er1 * er1 * w2 + d * er1 * w1
+        res = y - model
+        # 2*rows real values, 4 fitted parameters
+        power = float(np.sum(res.real**2 + res.imag**2)) / max(1, rows - 2)
+        return power / float(np.dot(w, w))
+
+
+_HANN_ROWS: dict[int, np.ndarray] = {}
+
+
+def _hann_row(m: int) -> np.ndarray:
+    w = _HANN_ROWS.get(m)
+    if w is None:
+        if len(_HANN_ROWS) > 16:
+            _HANN_ROWS.clear()
+        w = _HANN_ROWS[m] = np.hanning(m + 2)[1:-1]
+    return w
 
 
 def _fit_step(g: _Gate, omega: float, ab: tuple[float, float] | None):
@@ -407,11 +457,13 @@ def estimate_tone(
     # to first order; the three-parameter projections give the residual energy.
     a_fit, b_fit, d_fit = float(sol[0]), float(sol[1]), float(sol[2])
     amp = math.hypot(a_fit, b_fit)
-    rss = g.sum_x2 - (a3 * xc + b3 * xs + d3 * g.sum_x)
-    dof = max(1, n - 4)
-    sigma2 = max(rss, 0.0) / dof
-    # Guard against a numerically perfect fit (noiseless synthetic data).
-    sigma2 = max(sigma2, (amp * 1e-15) ** 2 + 1e-300)
+    local = g.local_noise_variance(omega, a_fit, b_fit, d_fit)
+    if local is None:
+        rss = g.sum_x2 - (a3 * xc + b3 * xs + d3 * g.sum_x)
+        local = max(rss, 0.0) / max(1, n - 4)
+    # Guard against a numerically perfect fit (noiseless synthetic data): float64
+    # rounding of the sums sets a floor about 150 dB below the tone.
+    sigma2 = max(local, (amp * 3e-8) ** 2, 1e-300)
     eta = amp * amp / (2.0 * sigma2)
     f_hz = omega * fs_hz / TWO_PI
     if f_hz < 0:
@@ -426,6 +478,7 @@ def estimate_tone(
         t_ref_s=(n - 1) / 2.0 / fs_hz,
         offset=d_fit,
         snr_db=float(10.0 * math.log10(eta)) if eta > 0 else -math.inf,
+        gate_snr_db=float(10.0 * math.log10(eta * n)) if eta > 0 else -math.inf,
         n_samples=n,
         acquired=acquired,
     )

@@ -25,7 +25,9 @@ GATE_MAX_S = 100.0
 DC_WARN_FRACTION = 0.01  # |mean| above 1% of full scale
 LOW_LEVEL_DBFS = -60.0
 SILENCE_DBFS = -110.0
-TONE_SNR_MIN_DB = 0.0  # per-sample SNR below which a gate holds no usable tone
+# Integrated SNR (N * eta) below which a gate holds no usable tone: the estimator's
+# threshold, where outliers begin, lies near 12-16 dB (references.md [computed]).
+TONE_GATE_SNR_MIN_DB = 20.0
 
 
 @dataclass(frozen=True)
@@ -236,7 +238,7 @@ class AudioProcessor:
         qual = None
         if lvl.rms_dbfs > SILENCE_DBFS:
             est = self._tone(x)
-            if est.snr_db >= TONE_SNR_MIN_DB:
+            if est.gate_snr_db >= TONE_GATE_SNR_MIN_DB:
                 self._track_hz, self._track_snr = est.frequency_hz, est.snr_db
                 freq, unc = est.frequency_hz * k, est.uncertainty_hz * k
                 amp, tsnr = est.amplitude_dbfs, est.snr_db

@@ -262,9 +262,10 @@ class TestIndependentGenerators:
         sox("-n", "-r", rate, "-b", bits, path, "synth", 2, "sine", freq, "vol", 0.5)
         x, fs = sf.read(path)
         est = estimate_tone(x, fs)
-        # 3 sigma coverage; sox computes the phase in double precision, so the floor
-        # for its own rounding is ~1e-9 Hz.
-        assert abs(est.frequency_hz - freq) <= 3 * est.uncertainty_hz + 1e-9
+        # 3-sigma coverage, plus the generator's own floor: sox's sine at 8-16 kHz
+        # carries residue ~80-95 dB down and reads a few 1e-9 (relative) off its nominal
+        # frequency even written as float (measured here [computed], 48 kHz: ~1e-13).
+        assert abs(est.frequency_hz - freq) <= 3 * est.uncertainty_hz + 1e-8 * freq
         assert est.amplitude_dbfs == pytest.approx(20 * math.log10(0.5), abs=0.01)
 
     def test_sox_noisy_sine(self, sox, tmp_path):

@@ -40,9 +40,11 @@ def add_parser(sub) -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print JSON")
     acts = p.add_subparsers(dest="action", metavar="ACTION")
-    acts.add_parser("list", help="list bench profiles (the default)")
+    lst = acts.add_parser("list", help="list bench profiles (the default)")
+    lst.add_argument("--json", action="store_true", dest="json_sub", help="print JSON")
     show = acts.add_parser("show", help="show one bench profile")
     show.add_argument("name", metavar="NAME")
+    show.add_argument("--json", action="store_true", dest="json_sub", help="print JSON")
     clock = acts.add_parser(
         "clock",
         help="measure the clock correction from a recording of a known tone",
@@ -74,7 +76,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
     )
     clock.add_argument("--channel", type=int, default=0, metavar="N", help="channel (default 0)")
     clock.add_argument("--gate", type=float, default=1.0, metavar="S", help="gate time (default 1)")
-    clock.add_argument("--json", action="store_true", dest="json_clock", help="print JSON")
+    clock.add_argument("--json", action="store_true", dest="json_sub", help="print JSON")
     extra = getattr(_deviation_module(), "add_action", None)
     if extra is not None:
         extra(acts)
@@ -125,6 +127,7 @@ def run(args) -> int:
     from monitor import output, profiles
 
     action = args.action or "list"
+    args.json = args.json or getattr(args, "json_sub", False)
     con = Console()
     if action == "list":
         profs = profiles.load_all()
@@ -183,7 +186,7 @@ def run(args) -> int:
             "reference_hz": args.reference,
             "warnings": list(analysis.summary.warnings),
         }
-        if args.json or args.json_clock:
+        if args.json:
             print(output.dumps(result))
         else:
             con.print(

@@ -1,0 +1,259 @@
+"""`swingmeter analyze`, `calibrate` and `demo` through the command line."""
+
+from __future__ import annotations
+
+import csv
+import json
+import struct
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from monitor import __version__
+from monitor.cli import build_parser, main
+
+
+def write_tone(path, f=1234.5, fs=48000, dur=3.0, amp=0.5, noise=1e-3, seed=3, subtype=None):
+    rng = np.random.default_rng(seed)
+    t = np.arange(int(fs * dur)) / fs
+    x = amp * np.sin(2 * np.pi * f * t) + noise * rng.standard_normal(t.size)
+    sf.write(path, x, fs, subtype=subtype or "PCM_24")
+    return path
+
+
+def run_json(capsys, *argv):
+    rc = main(list(argv))
+    out = capsys.readouterr()
+    assert rc == 0, out.err
+    return json.loads(out.out)
+
+
+def dotted(d, key):
+    for part in key.split("."):
+        d = d[part]
+    return d
+
+
+SUMMARY_KEYS = [
+    "file",
+    "mode",
+    "sample_rate_hz",
+    "duration_s",
+    "clock.ppm",
+    "level.rms_dbfs",
+    "level.peak_dbfs",
+    "level.clipped_samples",
+    "tone.frequency_hz",
+    "tone.uncertainty_hz",
+    "tone.amplitude_dbfs",
+    "quality.snr_db",
+    "quality.sinad_db",
+    "quality.thd_percent",
+    "quality.thd_n_percent",
+    "quality.enob_bits",
+    "warnings",
+]
+
+
+class TestAnalyze:
+    def test_json_keys(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        d = run_json(capsys, "analyze", str(p), "--json")
+        for key in SUMMARY_KEYS:
+            dotted(d, key)
+        assert d["mode"] == "audio"
+        assert d["tone"]["frequency_hz"] == pytest.approx(1234.5, abs=1e-4)
+        assert "readings" not in d
+
+    def test_readings(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        d = run_json(capsys, "analyze", str(p), "--json", "--readings", "--gate", "0.5")
+        assert len(d["readings"]) == 6
+        for r in d["readings"]:
+            assert {"t_s", "frequency_hz", "uncertainty_hz"} <= set(r)
+
+    def test_several_files_give_array(self, tmp_path, capsys):
+        a = write_tone(tmp_path / "a.wav", f=440)
+        b = write_tone(tmp_path / "b.wav", f=880)
+        d = run_json(capsys, "analyze", str(a), str(b), "--json")
+        assert [x["tone"]["frequency_hz"] for x in d] == pytest.approx([440, 880], abs=1e-3)
+
+    def test_csv(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        out = tmp_path / "r.csv"
+        assert main(["analyze", str(p), "--csv", str(out)]) == 0
+        rows = list(csv.DictReader(out.open()))
+        assert len(rows) == 3
+        assert {"file", "t_s", "frequency_hz", "uncertainty_hz"} <= set(rows[0])
+        assert float(rows[1]["t_s"]) == 1.0
+        assert float(rows[0]["frequency_hz"]) == pytest.approx(1234.5, abs=1e-3)
+
+    def test_table(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        assert main(["analyze", str(p), "--readings"]) == 0
+        out = capsys.readouterr().out
+        assert "1234.5" in out and "±" in out and "SINAD" in out
+
+    def test_near_band_and_clock(self, tmp_path, capsys):
+        fs = 48000
+        t = np.arange(fs * 2) / fs
+        x = 0.5 * np.sin(2 * np.pi * 1000 * t) + 0.05 * np.sin(2 * np.pi * 2500 * t)
+        p = tmp_path / "two.wav"
+        sf.write(p, x, fs, subtype="FLOAT")
+        d = run_json(capsys, "analyze", str(p), "--json", "--near", "2.4k")
+        assert d["tone"]["frequency_hz"] == pytest.approx(2500, abs=1e-3)
+        d = run_json(capsys, "analyze", str(p), "--json", "--band", "2000", "3000")
+        assert d["tone"]["frequency_hz"] == pytest.approx(2500, abs=1e-3)
+        d = run_json(capsys, "analyze", str(p), "--json", "--clock-ppm", "100")
+        assert d["tone"]["frequency_hz"] == pytest.approx(1000.1, abs=1e-4)
+        assert d["clock"]["ppm"] == 100
+
+    def test_clipping_warning(self, tmp_path, capsys):
+        fs = 48000
+        x = np.clip(1.5 * np.sin(2 * np.pi * 1000 * np.arange(fs) / fs), -1, 1)
+        p = tmp_path / "clip.wav"
+        sf.write(p, x, fs, subtype="PCM_16")
+        d = run_json(capsys, "analyze", str(p), "--json")
+        assert any("clipping" in w for w in d["warnings"])
+        assert d["level"]["clipped_samples"] > 0
+
+
+def _header_only(path, rate):
+    hdr = b"RIFF" + struct.pack("<I", 36 + 20) + b"WAVE"
+    hdr += b"fmt " + struct.pack("<IHHIIHH", 16, 1, 1, rate, rate * 2, 2, 16)
+    hdr += b"data" + struct.pack("<I", 20)
+    path.write_bytes(hdr + b"\x00\x01" * 10)
+
+
+class TestBadInput:
+    def _fails(self, capsys, *argv, match):
+        rc = main(list(argv))
+        err = capsys.readouterr().err
+        assert rc == 2
+        assert "Traceback" not in err
+        assert match in err
+        assert err.count("\n") == 1  # one clear line
+        return err
+
+    def test_missing(self, tmp_path, capsys):
+        self._fails(capsys, "analyze", str(tmp_path / "x.wav"), match="x.wav: file not found")
+
+    def test_empty(self, tmp_path, capsys):
+        (tmp_path / "e.wav").write_bytes(b"")
+        self._fails(capsys, "analyze", str(tmp_path / "e.wav"), match="file is empty")
+
+    def test_not_audio(self, tmp_path, capsys):
+        (tmp_path / "n.wav").write_text("hello")
+        self._fails(capsys, "analyze", str(tmp_path / "n.wav"), match="not a readable audio")
+
+    def test_truncated(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "t.wav")
+        p.write_bytes(p.read_bytes()[:40])
+        self._fails(capsys, "analyze", str(p), match="t.wav")
+
+    def test_zero_rate(self, tmp_path, capsys):
+        _header_only(tmp_path / "z.wav", 0)
+        self._fails(capsys, "analyze", str(tmp_path / "z.wav"), match="z.wav")
+
+    def test_absurd_rate(self, tmp_path, capsys):
+        _header_only(tmp_path / "r.wav", 50)
+        self._fails(capsys, "analyze", str(tmp_path / "r.wav"), match="sample rate 50 Hz")
+
+    def test_nan(self, tmp_path, capsys):
+        x = np.zeros(48000)
+        x[100] = np.nan
+        sf.write(tmp_path / "nan.wav", x, 48000, subtype="FLOAT")
+        self._fails(capsys, "analyze", str(tmp_path / "nan.wav"), match="NaN or infinite")
+
+    def test_bad_gate(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        self._fails(capsys, "analyze", str(p), "--gate", "0.01", match="gate_s=0.01")
+
+    def test_unknown_profile(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        self._fails(capsys, "analyze", str(p), "--profile", "nope", match="no bench profile")
+
+    def test_iq_mode_on_mono(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        self._fails(capsys, "analyze", str(p), "--mode", "iq", match="--mode iq needs a stereo")
+
+
+class TestCalibrateClock:
+    def test_measures_and_applies(self, tmp_path, capsys, config_dir):
+        # A card whose clock runs +50 ppm fast records a true 1000 Hz tone as
+        # 1000 / (1 + 50e-6) Hz against its nominal rate.
+        ppm_true = 50.0
+        fs = 48000
+        t = np.arange(fs * 4) / (fs * (1 + ppm_true * 1e-6))
+        x = 0.5 * np.sin(2 * np.pi * 1000.0 * t)
+        ref = tmp_path / "ref.wav"
+        sf.write(ref, x, fs, subtype="PCM_24")
+        d = run_json(
+            capsys, "calibrate", "clock", "--reference", "1k", str(ref), "--profile", "bench-a",
+            "--json",
+        )  # fmt: skip
+        assert d["clock_ppm"] == pytest.approx(ppm_true, abs=0.01)
+        assert d["clock_uncertainty_ppm"] < 0.01
+        saved = json.loads((config_dir / "bench-profiles.json").read_text())
+        assert saved["profiles"]["bench-a"]["clock_ppm"] == pytest.approx(ppm_true, abs=0.01)
+        # the same card's recording of the same tone now reads 1000 Hz
+        d = run_json(capsys, "analyze", str(ref), "--profile", "bench-a", "--json")
+        assert d["tone"]["frequency_hz"] == pytest.approx(1000.0, abs=1e-5)
+        assert d["clock"]["profile"] == "bench-a"
+        # listing and showing
+        assert main(["calibrate"]) == 0
+        assert "bench-a" in capsys.readouterr().out
+        d = run_json(capsys, "calibrate", "show", "bench-a", "--json")
+        assert d["bench-a"]["clock_reference_hz"] == 1000.0
+
+    def test_implausible_reference(self, tmp_path, capsys):
+        ref = write_tone(tmp_path / "ref.wav", f=1003.0)
+        rc = main(["calibrate", "clock", "--reference", "1000", str(ref), "--profile", "x"])
+        assert rc == 2
+        assert "right recording" in capsys.readouterr().err
+
+    def test_corrupt_profile_file_is_left_alone(self, tmp_path, capsys, config_dir):
+        path = config_dir / "bench-profiles.json"
+        path.write_text("{ broken")
+        ref = write_tone(tmp_path / "ref.wav", f=1000.0)
+        rc = main(["calibrate", "clock", "--reference", "1000", str(ref), "--profile", "x"])
+        assert rc == 2
+        assert "corrupt" in capsys.readouterr().err
+        assert path.read_text() == "{ broken"
+
+    def test_bad_profile_name(self, tmp_path, capsys):
+        ref = write_tone(tmp_path / "ref.wav", f=1000.0)
+        rc = main(["calibrate", "clock", "--reference", "1000", str(ref), "--profile", "../x"])
+        assert rc == 2
+        assert "not valid" in capsys.readouterr().err
+
+
+class TestProgram:
+    def test_version(self, capsys):
+        with pytest.raises(SystemExit) as e:
+            main(["--version"])
+        assert e.value.code == 0
+        assert __version__ in capsys.readouterr().out
+
+    def test_every_command_has_an_example(self):
+        parser = build_parser()
+        sub = next(a for a in parser._actions if a.dest == "command")
+        assert {"analyze", "calibrate", "demo"} <= set(sub.choices)
+        for name, p in sub.choices.items():
+            assert "swingmeter " + name in (p.epilog or ""), name
+
+    def test_no_command_prints_help(self, capsys):
+        assert main([]) == 2
+        assert "analyze" in capsys.readouterr().err
+
+
+class TestDemo:
+    def test_demo_runs_on_bundled_recordings(self, capsys):
+        d = run_json(capsys, "demo", "--json")
+        files = {x["file"].rsplit("/", 1)[-1]: x for x in d}
+        assert "rx-audio-1khz.wav" in files
+        # the demo card runs +37.5 ppm fast (recordings_demo/make_recordings.py); after
+        # the clock calibration from the reference the test tone reads 1 kHz again
+        assert files["rx-audio-1khz.wav"]["tone"]["frequency_hz"] == pytest.approx(1000.0, abs=1e-4)
+        assert files["rx-audio-1khz.wav"]["clock"]["ppm"] == pytest.approx(37.5, abs=0.01)
