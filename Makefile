@@ -6,6 +6,10 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: demo test lint format bench fuzz sysdeps clean
 
+# Many small BLAS calls per gate: one BLAS thread is fastest (see monitor/__init__.py).
+export OPENBLAS_NUM_THREADS ?= 1
+export OMP_NUM_THREADS ?= 1
+
 $(STAMP): pyproject.toml
 	test -x $(PY) || $(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install -q --upgrade pip

@@ -121,9 +121,13 @@ def crlb_frequency_std_hz(eta: float, n_samples: int, fs_hz: float) -> float:
 
 
 def _split(n: int) -> tuple[int, int]:
-    m = max(1, int(math.ceil(math.sqrt(n))))
-    r = -(-n // m)
-    return r, m
+    """(R, M) with R*M >= N and M near sqrt(N); an exact divisor avoids a padded copy."""
+    root = math.isqrt(n)
+    for m in range(max(1, root), max(1, root // 2), -1):
+        if n % m == 0:
+            return n // m, m
+    m = max(1, math.ceil(math.sqrt(n)))
+    return -(-n // m), m
 
 
 class _Gate:
@@ -375,6 +379,7 @@ def estimate_tone(
     start_hz: float | None = None,
     fundamental: bool = True,
     max_iter: int = 12,
+    check_finite: bool = True,
 ) -> ToneEstimate:
     """Estimate the frequency of the dominant (or chosen) tone in a real signal.
 
@@ -396,6 +401,9 @@ def estimate_tone(
         stronger harmonic (default True).
     max_iter : int
         Gauss–Newton iterations at most.
+    check_finite : bool
+        Check for NaN/Inf first (default True); callers that validated their samples
+        already may skip the extra pass.
 
     Returns
     -------
@@ -431,7 +439,7 @@ def estimate_tone(
         band_hz = (lo, hi)
     if near_hz is not None and not (0 < near_hz < fs_hz / 2):
         raise ValueError(f"near_hz={near_hz} must be inside (0, fs/2)")
-    if not np.all(np.isfinite(x)):
+    if check_finite and not np.isfinite(np.sum(x)):
         raise ValueError("x contains NaN or infinite samples")
 
     acquired = start_hz is None

@@ -218,14 +218,14 @@ class AudioProcessor:
         if band is not None:
             band = (band[0], min(band[1], self.fs / 2))
         if self._track_hz is not None:
-            est = dt.estimate_tone(x, self.fs, start_hz=self._track_hz)
+            est = dt.estimate_tone(x, self.fs, start_hz=self._track_hz, check_finite=False)
             bin_hz = self.fs / x.shape[0]
             moved = abs(est.frequency_hz - self._track_hz) > 0.5 * bin_hz
             lost = self._track_snr is not None and est.snr_db < self._track_snr - 6.0
             outside = band is not None and not (band[0] <= est.frequency_hz <= band[1])
             if not (moved or lost or outside):
                 return est
-        return dt.estimate_tone(x, self.fs, near_hz=s.near_hz, band_hz=band)
+        return dt.estimate_tone(x, self.fs, near_hz=s.near_hz, band_hz=band, check_finite=False)
 
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool) -> Reading:
         s = self.settings
