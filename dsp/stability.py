@@ -412,7 +412,9 @@ def check_readings(
     if tu.size < 2:
         raise ValueError(f"need at least 2 readings with a frequency, got {tu.size}")
     if tau0_s is None:
-        tau0_s = float(np.median(np.diff(t)))
+        # Reading times like k/10 carry rounding in their differences; 9 significant
+        # digits give back the gate time the readings were taken at.
+        tau0_s = float(f"{float(np.median(np.diff(t))):.9g}")
     dt = np.diff(tu)
     # A break is either a long interval or a missing reading between two usable ones.
     missing_before = np.cumsum(~ok)[ok]
