@@ -76,6 +76,20 @@ class Reading:
     enob_bits: float | None = None
     sfdr_db: float | None = None
     hum_db: float | None = None
+    # FM modes (beat, iq): carrier and RF, deviation of this gate, the modulating tone
+    carrier_hz: float | None = None
+    carrier_uncertainty_hz: float | None = None
+    rf_hz: float | None = None
+    fundamental_hz: float | None = None
+    deviation_peak_pos_hz: float | None = None
+    deviation_peak_neg_hz: float | None = None
+    deviation_peak_avg_hz: float | None = None
+    deviation_rms_hz: float | None = None
+    deviation_hold_hz: float | None = None  # peak |deviation| held since the start
+    mod_tone_hz: float | None = None
+    mod_index: float | None = None
+    occupied_bw_hz: float | None = None
+    cnr_db: float | None = None
     contiguous: bool = True
     overflow: bool = False
 
@@ -85,6 +99,67 @@ class Reading:
     @classmethod
     def columns(cls) -> list[str]:
         return [f.name for f in fields(cls)]
+
+
+@dataclass(frozen=True)
+class GateView:
+    """What a display needs of one gate besides its Reading (computed only on request).
+
+    Attributes
+    ----------
+    t_s : float
+        Gate start.
+    spectrum_hz, spectrum_db : ndarray
+        Power spectrum of the gate (dB re full scale per bin), at most a few thousand
+        points; for `iq` the axis is the offset from the centre frequency.
+    markers_hz : tuple of float
+        Lines worth marking: the tone, or the carrier and the sidebands at k * fm.
+    span_hz : (float, float) or None
+        The occupied-bandwidth span, when measured.
+    waveform_s, waveform : ndarray
+        A stretch of the signal to draw: the audio itself (full-scale units) in `audio`
+        mode, the instantaneous frequency deviation (Hz) in FM modes.
+    waveform_unit : str
+        "FS" or "Hz".
+    """
+
+    t_s: float
+    spectrum_hz: np.ndarray
+    spectrum_db: np.ndarray
+    markers_hz: tuple[float, ...]
+    span_hz: tuple[float, float] | None
+    waveform_s: np.ndarray
+    waveform: np.ndarray
+    waveform_unit: str
+
+
+DISPLAY_POINTS = 2048
+
+
+def spectrum_view(x: np.ndarray, fs_hz: float, *, points: int = DISPLAY_POINTS):
+    """(freqs_hz, power_db) of a gate for display: Hann window, max-hold decimation to
+    about `points` bins so narrow lines stay visible."""
+    n = x.shape[0]
+    w = np.hanning(n)
+    scale = 2.0 / w.sum()
+    if np.iscomplexobj(x):
+        spec = np.fft.fftshift(np.fft.fft(x * w)) * (scale / 2.0)
+        freqs = np.fft.fftshift(np.fft.fftfreq(n, 1.0 / fs_hz))
+    else:
+        spec = np.fft.rfft(x * w) * scale
+        freqs = np.fft.rfftfreq(n, 1.0 / fs_hz)
+    p = spec.real**2 + spec.imag**2
+    step = max(1, p.shape[0] // points)
+    m = (p.shape[0] // step) * step
+    p = p[:m].reshape(-1, step).max(axis=1)
+    freqs = freqs[:m].reshape(-1, step)[:, 0]
+    return freqs, 10.0 * np.log10(np.maximum(p, 1e-20))
+
+
+def waveform_view(y: np.ndarray, fs_hz: float, *, seconds: float = 0.02):
+    """The first `seconds` of a gate (enough for a few cycles of an audio tone)."""
+    n = max(2, min(y.shape[0], int(seconds * fs_hz)))
+    return np.arange(n) / fs_hz, np.array(y[:n].real if np.iscomplexobj(y) else y[:n])
 
 
 @dataclass(frozen=True)
@@ -277,6 +352,12 @@ class AudioProcessor:
             overflow=overflow,
         )
 
+    def view(self, x: np.ndarray, r: Reading) -> GateView:
+        freqs, db = spectrum_view(x, self.fs)
+        wt, wy = waveform_view(x, self.fs)
+        markers = () if r.frequency_hz is None else (r.frequency_hz / self.meta.clock_factor,)
+        return GateView(r.t_s, freqs, db, markers, None, wt, wy, "FS")
+
     def tone_summary(self) -> ToneSummary:
         k = self.meta.clock_factor
         if not self._tones:
@@ -351,8 +432,10 @@ class Engine:
         settings: AnalysisSettings | None = None,
         *,
         on_reading: Callable[[Reading], None] | None = None,
+        on_view: Callable[[GateView], None] | None = None,
         keep_readings: bool = True,
     ):
+        self.on_view = on_view
         self.meta = meta
         self.settings = settings or AnalysisSettings(mode=meta.mode)
         self.on_reading = on_reading
@@ -417,6 +500,8 @@ class Engine:
             self.readings.append(r)
         if self.on_reading is not None:
             self.on_reading(r)
+        if self.on_view is not None:
+            self.on_view(self.processor.view(gate, r))
         return r
 
     def finish(self) -> list[Reading]:
