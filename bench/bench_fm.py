@@ -90,8 +90,10 @@ def run_case(name, fs, kind, carrier, dev, fm, seconds, repeat, rng, band="300-3
     _, naive_peak = naive(x, fs)
     t_n = time.perf_counter() - t0
     err = lambda v: 100.0 * (v - dev) / dev  # noqa: E731
-    print(f"\n{name}: fs {fs / 1e3:g} kHz {kind}, carrier {carrier:g} Hz, deviation {dev:g} Hz "
-          f"at {fm:g} Hz,\n  IF bandwidth {bw:g} Hz (Carson x 1.25), 30 dB C/N in the IF band")  # fmt: skip
+    print(
+        f"\n{name}: fs {fs / 1e3:g} kHz {kind}, carrier {carrier:g} Hz, deviation {dev:g} Hz "
+        f"at {fm:g} Hz,\n  IF bandwidth {bw:g} Hz (Carson x 1.25), 30 dB C/N in the IF band"
+    )
     print(f"  decimation {dm.decimation} -> {dm.fs_out_hz:g} Hz, {dm.numtaps} taps")
     print(f"  {'method':<42}{'x real time':>12}{'deviation':>12}{'error':>9}")
     rows = [
@@ -116,20 +118,35 @@ def main(argv=None) -> int:
     rng = np.random.default_rng(412)
     try:
         load = os.getloadavg()[0]
-        print(f"load average {load:.2f} on {os.cpu_count()} CPUs (timings are best of "
-              f"{args.repeat})")  # fmt: skip
+        print(
+            f"load average {load:.2f} on {os.cpu_count()} CPUs (timings are best of {args.repeat})"
+        )
     except OSError:
         pass
     s = args.seconds
-    r48 = run_case("beat, land-mobile", 48000.0, "real", 12000.0, 3000.0, 1000.0, s, args.repeat,
-                   rng)  # fmt: skip
+    r48 = run_case(
+        "beat, land-mobile", 48000.0, "real", 12000.0, 3000.0, 1000.0, s, args.repeat, rng
+    )
     run_case("beat, narrow", 48000.0, "real", 9000.0, 1600.0, 800.0, s, args.repeat, rng)
-    r192 = run_case("I/Q, land-mobile", 192000.0, "complex", 25000.0, 5000.0, 1000.0, s / 2,
-                    args.repeat, rng)  # fmt: skip
-    run_case("I/Q, wide", 192000.0, "complex", 10000.0, 50000.0, 5000.0, s / 4, args.repeat,
-             rng, band="20-15k")  # fmt: skip
-    print(f"\ntargets: >= 2000x at 48 kHz real (got {r48[0]:.0f}x wall, {r48[1]:.0f}x CPU), "
-          f">= 400x at 192 kHz complex (got {r192[0]:.0f}x wall, {r192[1]:.0f}x CPU)")  # fmt: skip
+    r192 = run_case(
+        "I/Q, land-mobile", 192000.0, "complex", 25000.0, 5000.0, 1000.0, s / 2, args.repeat, rng
+    )
+    run_case(
+        "I/Q, wide",
+        192000.0,
+        "complex",
+        10000.0,
+        50000.0,
+        5000.0,
+        s / 4,
+        args.repeat,
+        rng,
+        band="20-15k",
+    )
+    print(
+        f"\ntargets: >= 2000x at 48 kHz real (got {r48[0]:.0f}x wall, {r48[1]:.0f}x CPU), "
+        f">= 400x at 192 kHz complex (got {r192[0]:.0f}x wall, {r192[1]:.0f}x CPU)"
+    )
     return 0
 
 
