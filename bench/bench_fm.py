@@ -12,14 +12,10 @@ from __future__ import annotations
 import argparse
 import math
 import os
-import sys
 import time
-from pathlib import Path
 
 import numpy as np
 import scipy.signal as ssig
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from dsp.fm import FmDemodulator, carson_bandwidth_hz, deviation_figures
 
