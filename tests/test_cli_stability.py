@@ -139,6 +139,27 @@ class TestInputs:
         assert d["readings"]["segments"] == [[0, 20], [20, 50]]
         assert set(d["adev"]["values"]) == {0.0} and d["noise"]["noise_type"] == "unknown"
 
+    def test_overlapping_gates_said(self, tmp_path, capsys, rng):
+        t = np.arange(200.0)
+        f = 1e3 + 1e-4 * rng.standard_normal(200)
+        p = write_csv(tmp_path / "o.csv", t, f, [("gate_s", ["2.0"] * 200)])
+        d = run_json(capsys, p)
+        assert d["tau0_s"] == 1.0
+        assert any("overlap" in w for w in d["warnings"])
+        p = write_csv(tmp_path / "dead.csv", t * 2, f, [("gate_s", ["1.0"] * 200)])
+        d = run_json(capsys, p)
+        assert d["tau0_s"] == 2.0 and any("dead time" in w for w in d["warnings"])
+
+    def test_counter_floor_from_uncertainty(self, tmp_path, capsys, rng):
+        # Allan variance definition (NIST SP 1065 eq. 2): independent readings of standard
+        # deviation u give AVAR(tau0) = u^2/f^2. Monte-Carlo: 4000 readings, 5%.
+        n, u = 4000, 2e-3
+        f = 1e3 + u * rng.standard_normal(n)
+        p = write_csv(tmp_path / "u.csv", np.arange(n), f, [("uncertainty_hz", [u] * n)])
+        d = run_json(capsys, p, "--nominal", "1k")
+        assert d["counter_floor_adev_tau0"] == pytest.approx(u / 1e3, rel=1e-12)
+        assert d["adev"]["values"][0] == pytest.approx(u / 1e3, rel=0.05)
+
     def test_malformed(self, tmp_path, capsys):
         p = tmp_path / "nohead.csv"
         p.write_text("time,freq\n0,1\n")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 import math
-from dataclasses import asdict
+from dataclasses import asdict, replace
 
 from monitor.errors import InputError
 from monitor.units import positive_frequency_arg
@@ -182,10 +182,31 @@ def _factors(taus, tau0: float):
     return ms
 
 
+def _gate_notes(series, tau0: float | None) -> tuple[float | None, list[str]]:
+    """Reading interval to use, and what to say when the gate and the spacing differ."""
+    spacing = float(f"{_median_interval(series):.9g}")
+    gate = series.gate_s
+    if tau0 is not None or gate is None or abs(gate - spacing) <= 0.01 * spacing:
+        return tau0 or gate, []
+    if gate > spacing:
+        note = (
+            f"gates of {gate:g} s overlap (readings every {spacing:g} s): neighbouring "
+            f"readings share data, so taus below {gate:g} s understate the noise; tau0 is "
+            "taken as the spacing and only taus of at least the gate time should be quoted"
+        )
+    else:
+        note = (
+            f"dead time: gates of {gate:g} s every {spacing:g} s; tau0 is taken as the "
+            "spacing, and the Allan figures are biased for noise other than white FM "
+            "(NIST SP 1065, dead-time corrections)"
+        )
+    return spacing, [note]
+
+
 def _analyze(series, args, which: str):
     from dsp.stability import analyze_stability
 
-    tau0 = args.tau0 or series.gate_s
+    tau0, notes = _gate_notes(series, args.tau0)
     try:
         if args.settled:
             select, span = "settled", None
@@ -193,7 +214,7 @@ def _analyze(series, args, which: str):
             select, span = "span", tuple(args.span)
         else:
             select, span = "all", None
-        return analyze_stability(
+        result = analyze_stability(
             series.t_s,
             series.frequency_hz,
             nominal_hz=args.nominal,
@@ -209,6 +230,9 @@ def _analyze(series, args, which: str):
         )
     except ValueError as exc:
         raise InputError(f"{which} {series.source}: {exc}") from None
+    if notes:
+        result = replace(result, warnings=(*result.warnings, *notes))
+    return result
 
 
 def _median_interval(series) -> float:
@@ -246,8 +270,20 @@ def _quote(result) -> dict:
     }
 
 
+def _counter_floor(series, result) -> float | None:
+    """ADEV(tau0) the readings' own uncertainty implies: white readings of standard
+    deviation u give sigma_y(tau0) = u/f (AVAR = E[(y2 - y1)^2]/2 = u^2/f^2)."""
+    import numpy as np
+
+    u = series.uncertainty_hz
+    if u is None or not np.any(np.isfinite(u)):
+        return None
+    return float(np.nanmedian(u) / result.nominal_hz)
+
+
 def _result_dict(series, result) -> dict:
     return {
+        "counter_floor_adev_tau0": _counter_floor(series, result),
         "source": series.source,
         "readings": asdict(result.check),
         "nominal_hz": result.nominal_hz,
@@ -409,6 +445,11 @@ def _print(doc: dict) -> None:
     out.print(t)
     out.print(f"noise: {escape(doc['noise']['explanation'])}")
     out.print(f"quote: {escape(doc['quote']['text'])}")
+    if doc.get("counter_floor_adev_tau0") is not None:
+        out.print(
+            f"the readings' own uncertainty (median uncertainty_hz / nominal) alone gives "
+            f"ADEV({rd['tau0_s']:g} s) ≈ {doc['counter_floor_adev_tau0']:.3g}"
+        )
     if doc["comparison"] and any(c["at_floor"] for c in doc["comparison"]):
         out.print(
             f"where DUT/floor < {FLOOR_RATIO:g} the figure is set by the sound card's clock "
