@@ -335,34 +335,31 @@ def is_sigmf(path: str | os.PathLike) -> bool:
 
 def sidecar_metadata(path: str | os.PathLike) -> dict:
     """StreamMeta fields stored beside a recording by `swingmeter record`, if any."""
-    side = Path(str(path) + ".json")
-    if not side.exists():
-        return {}
-    try:
-        data = json.loads(side.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"{side}: metadata sidecar is unreadable ({exc})") from None
-    if not isinstance(data, dict):
-        raise InputError(f"{side}: metadata sidecar is not a JSON object")
-    fields = {}
-    for key, kind in (
-        ("dial_hz", float),
-        ("center_hz", float),
-        ("clock_ppm", float),
-        ("harmonic", int),
-        ("sideband", str),
-        ("profile", str),
-    ):
-        value = data.get(key)
-        if value is None:
-            continue
+    from monitor.record import read_sidecar
+
+    data = read_sidecar(path, missing_ok=True)
+    keys = ("dial_hz", "center_hz", "clock_ppm", "harmonic", "sideband", "profile")
+    return {k: data[k] for k in keys if data.get(k) is not None}
+
+
+def recorded_mode(path: str | os.PathLike) -> str | None:
+    """The mode a recording says it was made in: its sidecar's, or `iq` for complex SigMF."""
+    path = str(path)
+    if is_sigmf(path):
+        meta_path = Path(_sigmf_meta_path(path))
         try:
-            fields[key] = kind(value)
-        except (TypeError, ValueError):
-            raise InputError(f"{side}: field {key!r} has a bad value {value!r}") from None
-    if fields.get("sideband") not in (None, "upper", "lower"):
-        raise InputError(f"{side}: sideband must be 'upper' or 'lower'")
-    return fields
+            g = json.loads(meta_path.read_text(encoding="utf-8")).get("global", {})
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError, AttributeError):
+            return None  # the reader will say what is wrong
+        datatype = str(g.get("core:datatype", "")) if isinstance(g, dict) else ""
+        return "iq" if datatype.startswith("c") else None
+    from monitor.record import read_sidecar
+
+    try:
+        mode = read_sidecar(path, missing_ok=True).get("mode")
+    except InputError:
+        return None
+    return mode if mode in MODES else None
 
 
 def open_source(

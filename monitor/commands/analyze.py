@@ -35,9 +35,10 @@ def add_input_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--mode",
         choices=MODES,
-        default="audio",
+        default=None,
         help="audio: a receiver's demodulated audio; beat: the carrier as an audio beat "
-        "note; iq: stereo I/Q (default: audio)",
+        "note; iq: stereo I/Q (default: the mode a recording's sidecar or SigMF datatype "
+        "says, else audio)",
     )
     p.add_argument(
         "--channel",
@@ -118,12 +119,23 @@ def add_parser(sub) -> argparse.ArgumentParser:
     return p
 
 
-def settings_from_args(args):
+def mode_for(path: str | None, args) -> str:
+    """The mode given on the command line, else the recording's own, else audio."""
+    if args.mode:
+        return args.mode
+    if path is not None:
+        from monitor.sources import recorded_mode
+
+        return recorded_mode(path) or "audio"
+    return "audio"
+
+
+def settings_from_args(args, mode: str | None = None):
     from monitor.engine import AnalysisSettings
 
     try:
         return AnalysisSettings(
-            mode=args.mode,
+            mode=mode or args.mode or "audio",
             gate_s=args.gate,
             near_hz=args.near,
             band_hz=tuple(args.band) if args.band else None,
@@ -184,11 +196,11 @@ def run(args) -> int:
 
     from monitor import output, render
 
-    settings = settings_from_args(args)
     err = Console(stderr=True)
     results = []
     prog, _ = _progress_factory(err)
     for path in args.files:
+        settings = settings_from_args(args, mode_for(path, args))
         if prog is not None:
             with prog:
                 task = prog.add_task(path, total=None)
