@@ -27,6 +27,7 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 SINK = "bench"
@@ -219,3 +220,51 @@ def pulse_server():
         # No PortAudio re-initialisation here: with the server gone, ALSA's pulse plugin
         # could try to autospawn a daemon. The next fixture re-initialises it anyway.
         stop_pulse_server(server)
+
+
+# -- helpers for tests that play and capture tones -----------------------------------
+
+
+def sox_tone(path, seconds, spec, channels=2, fs_hz=SINK_RATE_HZ):
+    """A tone file written by sox, e.g. spec = ["sine", "1234.5"]."""
+    subprocess.run(
+        ["sox", "-n", "-r", str(fs_hz), "-c", str(channels), "-b", "24", str(path), "synth",
+         str(seconds), *spec],
+        check=True, capture_output=True,
+    )  # fmt: skip
+
+
+def fft_peak_hz(x, fs_hz, pad=16):
+    """Hann-windowed, zero-padded FFT peak with a parabolic fit on log magnitude."""
+    n = len(x)
+    nfft = pad * (1 << int(np.ceil(np.log2(n))))
+    w = np.hanning(n)
+    if np.iscomplexobj(x):
+        spec = np.abs(np.fft.fft(x * w, nfft))
+        freqs = np.fft.fftfreq(nfft, 1 / fs_hz)
+    else:
+        spec = np.abs(np.fft.rfft(x * w, nfft))
+        freqs = np.fft.rfftfreq(nfft, 1 / fs_hz)
+    k = int(np.argmax(spec))
+    a, b, c = np.log(spec[[k - 1, k, (k + 1) % nfft]])
+    delta = 0.5 * (a - c) / (a - 2 * b + c)
+    return float(freqs[k] + delta * fs_hz / nfft)
+
+
+def steady_part(x, fs_hz, trim_s=0.1):
+    """The longest run where the 10 ms RMS is above half its maximum, trimmed at the ends."""
+    hop = int(fs_hz // 100)
+    n = len(x) // hop
+    rms = np.sqrt(np.mean(np.abs(x[: n * hop].reshape(n, hop)) ** 2, axis=1))
+    on = rms > 0.5 * rms.max()
+    best, run_start, best_span = 0, None, (0, 0)
+    for i, flag in enumerate([*on, False]):
+        if flag and run_start is None:
+            run_start = i
+        elif not flag and run_start is not None:
+            if i - run_start > best:
+                best, best_span = i - run_start, (run_start, i)
+            run_start = None
+    lo = (best_span[0] * hop) + int(trim_s * fs_hz)
+    hi = (best_span[1] * hop) - int(trim_s * fs_hz)
+    return x[lo:hi]

@@ -261,7 +261,7 @@ class TestRecorderKilled:
         )
         try:
             deadline = time.monotonic() + 30
-            while not progress.exists() or _read_progress(progress) < 3 * FS:
+            while not progress.exists() or _read_progress(progress) < 6 * FS:
                 assert child.poll() is None, "recorder child died"
                 assert time.monotonic() < deadline, "recorder child too slow"
                 time.sleep(0.01)
