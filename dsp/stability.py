@@ -28,6 +28,7 @@ References
 
 from __future__ import annotations
 
+import itertools
 import math
 import warnings as _warnings
 from collections.abc import Sequence
@@ -45,6 +46,7 @@ __all__ = [
     "RateCurve",
     "ReadingCheck",
     "StabilityResult",
+    "StabilityTracker",
     "Warmup",
     "allan_family",
     "analyze_stability",
@@ -1163,3 +1165,232 @@ def analyze_stability(
         noise=hint,
         warnings=tuple(notes),
     )
+
+
+# ---------------------------------------------------------------------------------------
+# incremental: for a window that adds readings as they come
+
+
+class StabilityTracker:
+    """Running OADEV, MDEV and linear drift over a growing run of readings.
+
+    Each reading costs O(number of octave taus): the squared second differences of phase
+    (OADEV) and their m-long sums (MDEV, from third differences of the cumulative phase)
+    are added as the phase points arrive, pooled over contiguous segments exactly as
+    `allan_family` does, so a live window can refresh the curves every reading. A gap (an
+    interval over 1.5*tau0, or a reading without a frequency) closes the segment;
+    nothing is interpolated.
+
+    Parameters
+    ----------
+    tau0_s : float
+        Gate time (reading interval), s.
+    nominal_hz : float
+        Frequency for fractional frequency and ppm.
+    max_factor : int, default 2**20
+        Largest averaging factor tracked.
+
+    Raises
+    ------
+    ValueError
+        Non-positive `tau0_s`, `nominal_hz` or `max_factor`.
+
+    References
+    ----------
+    NIST SP 1065 [1], eqs. (11) and (14) written in phase x: OADEV terms
+    x[i+2m] - 2x[i+m] + x[i], MDEV terms their sums over m consecutive i (kept as running
+    sums of third differences, as allantools.mdev computes them).
+    """
+
+    def __init__(self, *, tau0_s: float, nominal_hz: float, max_factor: int = 2**20) -> None:
+        _check_positive("tau0_s", tau0_s)
+        _check_positive("nominal_hz", nominal_hz)
+        if max_factor < 1:
+            raise ValueError(f"max_factor={max_factor} must be >= 1")
+        self.tau0_s = float(tau0_s)
+        self.nominal_hz = float(nominal_hz)
+        self._ms = 2 ** np.arange(int(math.floor(math.log2(max_factor))) + 1, dtype=np.int64)
+        k = self._ms.size
+        self._o_sum = np.zeros(k)
+        self._o_n = np.zeros(k, dtype=np.int64)
+        self._m_sum = np.zeros(k)
+        self._m_n = np.zeros(k, dtype=np.int64)
+        self._segments: list[int] = []  # phase points of each closed segment
+        self._x = np.zeros(1024)  # phase of the open segment, x[0] = 0
+        self._v = np.zeros(k)  # running MDEV window sums of the open segment
+        self._n = 0  # phase points in the open segment
+        self._t_last: float | None = None
+        self._y_ref: float | None = None
+        # drift sums about the first reading (keeps the digits of long records)
+        self._t_first: float | None = None
+        self._f_first = 0.0
+        self._s = np.zeros(5)  # n, sum t, sum t^2, sum f, sum t f
+
+    @property
+    def count(self) -> int:
+        """Readings with a frequency taken so far."""
+        return int(self._s[0])
+
+    def _close(self) -> None:
+        if self._n > 1:
+            self._segments.append(self._n)
+        self._n = 0
+
+    def _grow(self, need: int) -> None:
+        if need > self._x.size:
+            size = max(need, 2 * self._x.size)
+            self._x = np.concatenate([self._x, np.zeros(size - self._x.size)])
+
+    def extend(self, t_s, frequency_hz) -> None:
+        """Add readings (times strictly increasing, and later than those already added).
+
+        Parameters
+        ----------
+        t_s : array_like
+            Reading times, s.
+        frequency_hz : array_like
+            Readings, Hz; NaN marks a reading without a frequency (a gap).
+
+        Raises
+        ------
+        ValueError
+            Mismatched lengths, or times not after the previous ones.
+        """
+        t, f = _as_readings(np.atleast_1d(t_s), np.atleast_1d(frequency_hz))
+        if t.size == 0:
+            return
+        if self._t_last is not None and t[0] <= self._t_last:
+            raise ValueError(f"t_s={t[0]} must be after the last reading, {self._t_last}")
+        # where the run breaks: long interval or a missing reading
+        prev = np.concatenate([[self._t_last if self._t_last is not None else -np.inf], t[:-1]])
+        brk = (t - prev > 1.5 * self.tau0_s) | ~np.isfinite(f)
+        ok = np.isfinite(f)
+        if ok.any():
+            if self._t_first is None:
+                self._t_first, self._f_first = float(t[ok][0]), float(f[ok][0])
+            tt, ff = t[ok] - self._t_first, f[ok] - self._f_first
+            self._s += (tt.size, tt.sum(), (tt * tt).sum(), ff.sum(), (tt * ff).sum())
+        # contiguous runs of usable readings
+        starts = np.nonzero(brk | np.concatenate([[False], ~ok[:-1]]))[0]
+        edges = [0, *[int(i) for i in starts if i > 0], t.size]
+        for a, b in itertools.pairwise(edges):
+            if brk[a]:
+                self._close()
+            run = f[a:b][np.isfinite(f[a:b])]
+            if run.size:
+                self._append(run)
+        self._t_last = float(t[-1])
+
+    def _append(self, f: np.ndarray) -> None:
+        y = f / self.nominal_hz - 1.0
+        if self._y_ref is None:
+            # a constant offset changes no Allan statistic; removing it keeps phase small
+            self._y_ref = float(y[0])
+        y = y - self._y_ref
+        if self._n == 0:
+            self._n = 1  # x[0] = 0 starts the segment
+            self._x[0] = 0.0
+        n0 = self._n
+        n1 = n0 + y.size
+        self._grow(n1)
+        self._x[n0:n1] = self._x[n0 - 1] + np.cumsum(y) * self.tau0_s
+        x = self._x
+        new = np.arange(n0, n1)  # newly arrived phase indices j
+        for k, m in enumerate(self._ms):
+            j = new[new >= 2 * m]
+            if j.size == 0:
+                if n1 <= 2 * m:
+                    break
+                continue
+            d = x[j] - 2 * x[j - m] + x[j - 2 * m]
+            self._o_sum[k] += float(np.dot(d, d))
+            self._o_n[k] += j.size
+            # MDEV: v_i = sum over l = i..i+m-1 of x[l+2m] - 2x[l+m] + x[l], kept as a
+            # running sum updated by third differences of x (small numbers, so no digits
+            # are lost as they would be in differences of a cumulative phase).
+            j3 = j[j >= 3 * m - 1]
+            if j3.size:
+                first = j3[0] == 3 * m - 1
+                if first:
+                    v0 = float(np.sum(x[2 * m : 3 * m] - 2 * x[m : 2 * m] + x[:m]))
+                    self._m_sum[k] += v0 * v0
+                    self._m_n[k] += 1
+                    self._v[k] = v0
+                    j3 = j3[1:]
+                if j3.size:
+                    inc = x[j3] - 3 * x[j3 - m] + 3 * x[j3 - 2 * m] - x[j3 - 3 * m]
+                    v = self._v[k] + np.cumsum(inc)
+                    self._m_sum[k] += float(np.dot(v, v))
+                    self._m_n[k] += j3.size
+                    self._v[k] = float(v[-1])
+        self._n = n1
+
+    def drift_hz_per_s(self) -> float:
+        """Slope of the least-squares line through all readings so far (NaN if < 2)."""
+        n, st, stt, sf, stf = self._s
+        den = n * stt - st * st
+        return float((n * stf - st * sf) / den) if n >= 2 and den > 0 else math.nan
+
+    def drift_ppm_per_min(self) -> float:
+        """The same slope in ppm of the nominal frequency per minute."""
+        return self.drift_hz_per_s() * 60.0 / self.nominal_hz * 1e6
+
+    def curves(self, *, confidence: float = _CI_ONE_SIGMA) -> dict[str, AllanCurve]:
+        """OADEV, MDEV and TDEV of the readings so far, with confidence intervals.
+
+        Intervals assume white FM (alpha = 0) at every tau: a live estimate, cheaper than
+        the identification `allan_family` makes.
+
+        Returns
+        -------
+        dict
+            {"oadev", "mdev", "tdev"} -> AllanCurve (taus with at least one term).
+        """
+        import allantools
+
+        segs = [*self._segments, *([self._n] if self._n > 1 else [])]
+        out: dict[str, AllanCurve] = {}
+        for kind, ssum, cnt in (
+            ("oadev", self._o_sum, self._o_n),
+            ("mdev", self._m_sum, self._m_n),
+        ):
+            keep = cnt > 0
+            ms = self._ms[keep]
+            taus = ms * self.tau0_s
+            if kind == "oadev":
+                var = ssum[keep] / (2.0 * taus**2 * cnt[keep])
+            else:
+                var = ssum[keep] / (2.0 * ms.astype(float) ** 2 * taus**2 * cnt[keep])
+            vals = np.sqrt(var)
+            edfs = [
+                sum(_edf(0, int(m), n_ph, kind) for n_ph in segs if n_ph > 2 * m) or 1.0 for m in ms
+            ]
+            ci = [
+                allantools.confidence_interval(v, e, ci=confidence)
+                for v, e in zip(vals, edfs, strict=True)
+            ]
+            out[kind] = AllanCurve(
+                kind=kind,
+                taus_s=tuple(float(v) for v in taus),
+                values=tuple(float(v) for v in vals),
+                lower=tuple(float(c[0]) for c in ci),
+                upper=tuple(float(c[1]) for c in ci),
+                edf=tuple(float(e) for e in edfs),
+                n_terms=tuple(int(c) for c in cnt[keep]),
+                alpha=(0,) * int(keep.sum()),
+                confidence=float(confidence),
+            )
+        md = out["mdev"]
+        sc = np.asarray(md.taus_s) / math.sqrt(3.0)
+        out["tdev"] = AllanCurve(
+            kind="tdev",
+            taus_s=md.taus_s,
+            values=tuple(float(v) for v in sc * np.asarray(md.values)),
+            lower=tuple(float(v) for v in sc * np.asarray(md.lower)),
+            upper=tuple(float(v) for v in sc * np.asarray(md.upper)),
+            edf=md.edf,
+            n_terms=md.n_terms,
+            alpha=md.alpha,
+            confidence=md.confidence,
+        )
+        return out

@@ -12,6 +12,7 @@ from scipy import stats
 
 from dsp.stability import (
     NOISE_SLOPES,
+    StabilityTracker,
     allan_family,
     analyze_stability,
     check_readings,
@@ -352,3 +353,55 @@ class TestAnalyzeStability:
             analyze_stability(t, 1e3 + 1e-2 * t, select="settled")
         with pytest.raises(ValueError, match="holds 0 readings"):
             analyze_stability(t, np.ones(100), select="span", span_s=(500, 600))
+
+
+class TestStabilityTracker:
+    def _stream(self, rng):
+        n = 6000
+        t = np.arange(n) * 0.5
+        y = 1e-9 * rng.standard_normal(n) + 1e-12 * np.cumsum(rng.standard_normal(n))
+        f = 1e6 * (1 + y) + 1e-5 * t
+        f[1000:1004] = np.nan  # missing readings
+        keep = np.ones(n, bool)
+        keep[3000:3100] = False  # a 50 s hole
+        return t[keep], f[keep]
+
+    def test_matches_batch_in_chunks(self, rng):
+        # Reference: allan_family (itself checked against NIST SP 1065 and allantools) on
+        # the same readings and segments; readings fed in random chunk sizes.
+        t, f = self._stream(rng)
+        tr = StabilityTracker(tau0_s=0.5, nominal_hz=1e6)
+        i = 0
+        while i < t.size:
+            k = int(rng.integers(1, 300))
+            tr.extend(t[i : i + k], f[i : i + k])
+            i += k
+        ok = np.isfinite(f)
+        segs = check_readings(t, f).segments
+        ref = allan_family(f[ok] / 1e6 - 1, 0.5, segments=segs)
+        got = tr.curves()
+        for kind in ("oadev", "mdev", "tdev"):
+            assert got[kind].taus_s == ref[kind].taus_s
+            assert got[kind].n_terms == ref[kind].n_terms
+            np.testing.assert_allclose(got[kind].values, ref[kind].values, rtol=1e-8)
+        assert tr.count == int(ok.sum())
+        # drift: scipy.stats.linregress on the usable readings
+        assert tr.drift_hz_per_s() == pytest.approx(stats.linregress(t[ok], f[ok]).slope, rel=1e-9)
+        assert tr.drift_ppm_per_min() == pytest.approx(tr.drift_hz_per_s() * 60, rel=1e-12)
+
+    def test_intervals_white_fm(self, rng):
+        # Reference: allantools.edf_greenhall (alpha = 0) + confidence_interval.
+        tr = StabilityTracker(tau0_s=1.0, nominal_hz=1e3)
+        tr.extend(np.arange(1000.0), 1e3 * (1 + 1e-8 * rng.standard_normal(1000)))
+        c = tr.curves()["oadev"]
+        edf = allantools.edf_greenhall(0, 2, 4, 1001, overlapping=True, modified=False)
+        lo, hi = allantools.confidence_interval(c.values[2], edf)
+        assert (c.lower[2], c.upper[2]) == pytest.approx((lo, hi), rel=1e-9)
+
+    def test_raises(self):
+        with pytest.raises(ValueError, match="tau0_s=0"):
+            StabilityTracker(tau0_s=0, nominal_hz=1e3)
+        tr = StabilityTracker(tau0_s=1.0, nominal_hz=1e3)
+        tr.extend([0.0, 1.0], [1e3, 1e3])
+        with pytest.raises(ValueError, match="after the last reading"):
+            tr.extend([1.0], [1e3])
