@@ -106,6 +106,27 @@ def sidecar_path(path: str | os.PathLike) -> Path:
     return p.with_name(p.name + SIDECAR_SUFFIX)
 
 
+def check_output_path(path: str | os.PathLike) -> Path:
+    """Fail early, before a device is opened, on an output path that cannot be created.
+
+    Returns
+    -------
+    Path
+        The path.
+
+    Raises
+    ------
+    InputError
+        If the directory does not exist or the path is a directory.
+    """
+    p = Path(path)
+    if not p.parent.is_dir():
+        raise InputError(f"cannot create {p}: directory {p.parent} not found")
+    if p.is_dir():
+        raise InputError(f"cannot create {p}: it is a directory")
+    return p
+
+
 def _utc_iso(t: float) -> str:
     # SigMF's core:datetime wants ISO 8601 in UTC with a 'Z'; use it for the sidecar too.
     d = _dt.datetime.fromtimestamp(t, tz=_dt.timezone.utc)
@@ -427,8 +448,7 @@ class Recorder:
             self.path = path
             self.sigmf_meta_path = None
         self.sidecar = sidecar_path(self.path)
-        if not self.path.parent.is_dir():
-            raise InputError(f"cannot create {self.path}: directory {self.path.parent} not found")
+        check_output_path(self.path)
         if sigmf:
             self._sink: _SoundFileSink | _RawSink = _RawSink(self.path)
         else:

@@ -50,6 +50,23 @@ def capture_while_playing(server, wav, source):
     return blocks
 
 
+class TestSoundServerFixture:
+    def test_raises(self, monkeypatch):
+        # Without the tools the server does not start; in CI on Linux that is a failure.
+        from tests import soundserver
+
+        monkeypatch.setenv("PATH", "")
+        with pytest.raises(RuntimeError, match="pulseaudio not found"):
+            soundserver.start_pulse_server()
+        monkeypatch.setenv("CI", "true")
+        if sys.platform.startswith("linux"):
+            with pytest.raises(pytest.fail.Exception, match="unavailable in CI"):
+                soundserver._unavailable("test")
+        monkeypatch.setenv("CI", "false")
+        with pytest.raises(pytest.skip.Exception, match="sound server unavailable: test"):
+            soundserver._unavailable("test")
+
+
 class TestPortAudioMissing:
     @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="wheels bundle PortAudio")
     def test_raises(self):

@@ -107,6 +107,21 @@ class TestRecord:
         assert side["clock_ppm"] == -3.5 and side["complete"] is True
         assert side["capture"]["dropped_blocks"] == 0
 
+    def test_iq_sigmf(self, pulse_server, tmp_path, capsys):
+        from sigmf import sigmffile
+
+        out = tmp_path / "iq"
+        args = ["record", "--device", "pulse", "--mode", "iq", "--dial", "433.92M"]
+        assert main([*args, "--duration", "1", "--sigmf", str(out)]) == 0
+        assert "SigMF cf32_le" in capsys.readouterr().err
+        # Reference reader: the sigmf package.
+        rec = sigmffile.fromfile(str(tmp_path / "iq.sigmf-meta"))
+        assert rec.get_global_field("core:sample_rate") == FS
+        assert rec.get_captures()[0]["core:frequency"] == 433.92e6
+        samples = rec.read_samples()
+        assert samples.dtype.kind == "c" and len(samples) == FS
+        assert read_sidecar(tmp_path / "iq.sigmf-data")["mode"] == "iq"
+
     @pytest.mark.skipif(sys.platform == "win32", reason="SIGINT to a child is POSIX here")
     def test_ctrl_c(self, pulse_server, tmp_path):
         out = tmp_path / "long.wav"
@@ -140,14 +155,16 @@ class TestRecord:
         assert main(["record", "--duration", "1", str(tmp_path / "no" / "x.wav")]) == 2
         assert "cannot create" in capsys.readouterr().err
         (tmp_path / "adir.wav").mkdir()
-        assert main(["record", "--device", "pulse", "--duration", "1", str(tmp_path)]) == 2
+        adir = tmp_path / "adir.wav"
+        assert main(["record", "--device", "pulse", "--duration", "1", str(adir)]) == 2
         err = capsys.readouterr().err
-        assert err.startswith("swingmeter: error: cannot create") and err.count("\n") == 1
-        assert main(["record", "--device", "no-such-card", "--duration", "1", "x.wav"]) == 2
+        assert err == f"swingmeter: error: cannot create {adir}: it is a directory\n"
+        x = str(tmp_path / "x.wav")
+        assert main(["record", "--device", "no-such-card", "--duration", "1", x]) == 2
         assert "no input device matches 'no-such-card'" in capsys.readouterr().err
         assert main(["record", "--duration", "1", "--sigmf", str(tmp_path / "s.wav")]) == 2
         assert "--sigmf needs --mode iq" in capsys.readouterr().err
         with pytest.raises(SystemExit):
-            main(["record", "--duration", "-1", "x.wav"])
+            main(["record", "--duration", "-1", x])
         assert "duration must be positive" in capsys.readouterr().err
-        assert not (tmp_path / "s.wav").exists()
+        assert not (tmp_path / "s.wav").exists() and not (tmp_path / "x.wav").exists()

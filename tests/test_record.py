@@ -186,7 +186,7 @@ class TestRecorder:
         with pytest.raises(InputError, match=r"directory .* not found"):
             Recorder(tmp_path / "missing" / "x.wav", META)
         (tmp_path / "adir.wav").mkdir()
-        with pytest.raises(InputError, match=r"cannot create .*adir\.wav"):
+        with pytest.raises(InputError, match=r"cannot create .*adir\.wav: it is a directory"):
             Recorder(tmp_path / "adir.wav", META)
         (tmp_path / "plain").write_text("x")
         with pytest.raises(InputError, match="not found"):

@@ -247,10 +247,11 @@ class _Progress:
 
 
 def run(args) -> int:
-    from monitor.record import Recorder
+    from monitor.record import Recorder, check_output_path
 
     if args.sigmf and args.mode != "iq":
         raise InputError(f"--sigmf needs --mode iq (not {args.mode!r})")
+    check_output_path(args.out)  # before the device is opened
     source = source_from_args(args, duration_s=args.duration)
     interrupted = False
     recorder = None
