@@ -130,30 +130,89 @@ def _split(n: int) -> tuple[int, int]:
     return -(-n // m), m
 
 
+class _Layout:
+    """Index arrays shared by every gate of one length (cached)."""
+
+    def __init__(self, n: int):
+        self.n = n
+        self.r, self.m = _split(n)
+        self.c = (n - 1) / 2.0
+        self.u = np.arange(self.r) * float(self.m) - self.c
+        self.v = np.arange(self.m, dtype=float)
+        self.vpow = np.stack([self.v**p for p in range(_TAYLOR + 2)])  # (P, M)
+        self.tail = np.arange(n, self.r * self.m) - self.c  # padded times, excluded
+        self.tt = (n - 1) * n * (n + 1) / 12.0  # sum of t^2
+        self.full_rows = self.r if self.r * self.m == n else self.r - 1
+        self.hann = np.hanning(self.m + 2)[1:-1]
+        self.whann = self.hann * self.vpow[:_TAYLOR]
+        self.hann_sum = float(self.hann.sum())
+        self.hann_energy = float(np.dot(self.hann, self.hann))
+
+
+# Taylor terms for moving a row projection from w0 to w = w0 + d: the error after K terms
+# is (d M)^K / K!; re-expansion keeps |d| M below _REEXPAND, so 4 terms leave ~1e-10.
+_TAYLOR = 4
+_REEXPAND = 0.02
+_FACT = np.array([1.0, 1.0, 2.0, 6.0, 24.0, 120.0])
+_LAYOUTS: dict[int, _Layout] = {}
+
+
+def _layout(n: int) -> _Layout:
+    lay = _LAYOUTS.get(n)
+    if lay is None:
+        if len(_LAYOUTS) > 16:
+            _LAYOUTS.clear()
+        lay = _LAYOUTS[n] = _Layout(n)
+    return lay
+
+
 class _Gate:
     """A gate prepared for repeated factored sums.
 
     Index n = r*M + m (r < R, m < M), centred time t = n - c with c = (N-1)/2, so
     t = u_r + v_m with u_r = r*M - c and v_m = m, and e^{j w t} = e^{j w u_r} e^{j w v_m}.
+    The row sums q_p[r] = sum_m x[rM+m] m^p e^{-j w0 m} are taken once, in one BLAS
+    product over the gate; sums at a nearby w follow from their Taylor series in (w - w0).
     """
 
     def __init__(self, x: np.ndarray):
-        n = x.shape[0]
-        self.n = n
-        self.r, self.m = _split(n)
-        if self.r * self.m == n:
-            self.rows = x.reshape(self.r, self.m)
+        lay = self.lay = _layout(x.shape[0])
+        self.n, self.r, self.m = lay.n, lay.r, lay.m
+        if lay.r * lay.m == lay.n:
+            self.rows = x.reshape(lay.r, lay.m)
         else:
-            buf = np.zeros(self.r * self.m)
-            buf[:n] = x
-            self.rows = buf.reshape(self.r, self.m)
-        self.c = (n - 1) / 2.0
+            buf = np.zeros(lay.r * lay.m)
+            buf[: lay.n] = x
+            self.rows = buf.reshape(lay.r, lay.m)
+        self.x = x
         self.sum_x = float(x.sum())
-        self.sum_x2 = float(np.dot(x, x))
-        self.u = np.arange(self.r) * float(self.m) - self.c
-        self.v = np.arange(self.m, dtype=float)
-        self.tail = np.arange(n, self.r * self.m) - self.c  # padded times, excluded
-        self.tt = (n - 1) * n * (n + 1) / 12.0  # sum of t^2
+        self.w0: float | None = None
+
+    @property
+    def sum_x2(self) -> float:
+        return float(np.dot(self.x, self.x))
+
+    def _expand(self, w0: float) -> None:
+        lay = self.lay
+        e = np.exp(-1j * w0 * lay.v)
+        k = _TAYLOR + 1
+        cols = np.concatenate([lay.vpow[:k] * e, lay.whann * e])  # (K + T, M) complex
+        basis = np.concatenate([cols.real, cols.imag]).T  # (M, 2(K + T)) real
+        q = self.rows @ basis  # the one pass over the gate
+        half = cols.shape[0]
+        qc = q[:, :half] + 1j * q[:, half:]
+        self.q = qc[:, :k].T  # (K, R)
+        self.qw = qc[:, k:].T  # (T, R)
+        self.w0 = w0
+
+    def _row_sums(self, omega: float):
+        if self.w0 is None or abs(omega - self.w0) * self.m > _REEXPAND:
+            self._expand(omega)
+        d = omega - self.w0
+        coef = (-1j * d) ** np.arange(_TAYLOR) / _FACT[:_TAYLOR]
+        s0 = coef @ self.q[:_TAYLOR]  # sum_m x e^{-j w m}
+        s1 = coef @ self.q[1 : _TAYLOR + 1]  # sum_m x m e^{-j w m}
+        return s0, s1, coef
 
     def sums(self, omega: float):
         """Everything one Gauss–Newton step needs at angular frequency `omega`.
@@ -163,41 +222,51 @@ class _Gate:
         sum t^2 cos(theta t)); by the symmetry of centred t the sums of sin(theta t),
         t cos(theta t) and t^2 sin(theta t) vanish.
         """
-        thetas = np.array([-omega, omega, 2.0 * omega])
-        er = np.exp(1j * np.outer(thetas, self.u))  # (3, R)
-        ec = np.exp(1j * np.outer(thetas, self.v))  # (3, M)
-        # data projections at -omega
-        basis = np.empty((self.m, 4))
-        basis[:, 0] = ec[0].real
-        basis[:, 1] = ec[0].imag
-        vc = self.v * ec[0]
-        basis[:, 2] = vc.real
-        basis[:, 3] = vc.imag
-        q = self.rows @ basis  # (R, 4), one BLAS product over the whole gate
-        q0 = q[:, 0] + 1j * q[:, 1]
-        q1 = q[:, 2] + 1j * q[:, 3]
-        p0 = complex(er[0] @ q0)
-        p1 = complex(er[0] @ (self.u * q0 + q1))
-        # trigonometric moments at omega and 2 omega
-        er2, ec2 = er[1:], ec[1:]
-        u, v = self.u, self.v
-        c0 = ec2.sum(axis=1)
-        c1 = ec2 @ v
-        c2 = ec2 @ (v * v)
-        r0 = er2.sum(axis=1)
-        r1 = er2 @ u
-        r2 = er2 @ (u * u)
+        lay = self.lay
+        s0, s1, _ = self._row_sums(omega)
+        er_c = np.exp(-1j * omega * lay.u)  # e^{-j w u_r}
+        p0 = complex(er_c @ s0)
+        p1 = complex(er_c @ (lay.u * s0 + s1))
+        return p0, p1, self._trig(omega), self._trig(2.0 * omega)
+
+    def _trig(self, theta: float) -> tuple[float, float, float]:
+        """(sum cos(theta t), sum t sin(theta t), sum t^2 cos(theta t)) over centred t.
+
+        Closed form from the Dirichlet kernel D(theta) = sin(N theta/2) / sin(theta/2)
+        and its derivatives (sum t sin = -D', sum t^2 cos = -D''); within a few bins of
+        theta = 0 (mod 2 pi), where the form cancels, the factored sums are used.
+        """
+        n = self.n
+        x = 0.5 * theta
+        sx = math.sin(x)
+        if abs(sx) * n < 20.0:
+            return self._trig_sum(theta)
+        cx = math.cos(x)
+        snx, cnx = math.sin(n * x), math.cos(n * x)
+        f, f1, f2 = snx, n * cnx, -n * n * snx
+        g, g1, g2 = sx, cx, -sx
+        d0 = f / g
+        num = f1 * g - f * g1
+        d1 = num / (g * g)
+        d2 = (f2 * g - f * g2) / (g * g) - 2.0 * g1 * num / (g * g * g)
+        return d0, -0.5 * d1, -0.25 * d2
+
+    def _trig_sum(self, theta: float) -> tuple[float, float, float]:
+        lay = self.lay
+        er = np.exp(1j * theta * lay.u)
+        ec = np.exp(1j * theta * lay.v)
+        c0, c1, c2 = lay.vpow[:3] @ ec
+        u = lay.u
+        r0, r1, r2 = er.sum(), er @ u, er @ (u * u)
         g0 = r0 * c0
         g1 = r1 * c0 + r0 * c1
         g2 = r2 * c0 + 2.0 * r1 * c1 + r0 * c2
-        if self.tail.size:
-            et = np.exp(1j * np.outer(thetas[1:], self.tail))
-            g0 = g0 - et.sum(axis=1)
-            g1 = g1 - et @ self.tail
-            g2 = g2 - et @ (self.tail * self.tail)
-        m1 = (float(g0[0].real), float(g1[0].imag), float(g2[0].real))
-        m2 = (float(g0[1].real), float(g1[1].imag), float(g2[1].real))
-        return p0, p1, m1, m2
+        if lay.tail.size:
+            et = np.exp(1j * theta * lay.tail)
+            g0 -= et.sum()
+            g1 -= et @ lay.tail
+            g2 -= et @ (lay.tail * lay.tail)
+        return float(g0.real), float(g1.imag), float(g2.real)
 
     def local_noise_variance(self, omega: float, a: float, b: float, d: float) -> float | None:
         """White-noise variance equivalent to the noise density near the tone.
@@ -209,40 +278,26 @@ class _Gate:
         variance depends on the noise density at the tone (asymptotically, in coloured
         noise too), which is what this measures. None when there are too few rows.
         """
-        rows = self.r if self.r * self.m == self.n else self.r - 1
+        lay = self.lay
+        rows = lay.full_rows
         if rows < 8:
             return None
-        w = _hann_row(self.m)
-        thetas = np.array([-omega, -2.0 * omega])
-        ec = np.exp(1j * np.outer(thetas, self.v))  # (2, M)
-        wc = w * ec[0]
-        basis = np.empty((self.m, 2))
-        basis[:, 0] = wc.real
-        basis[:, 1] = wc.imag
-        q = self.rows[:rows] @ basis
-        u = self.u[:rows]
+        _, _, coef = self._row_sums(omega)
+        yrow = coef[: self.qw.shape[0]] @ self.qw  # sum_m w_m x e^{-j w m}
+        u = lay.u[:rows]
         er1 = np.exp(-1j * omega * u)
-        y = (q[:, 0] + 1j * q[:, 1]) * er1
-        w0 = w.sum()
-        w1 = np.dot(w, ec[0])
-        w2 = np.dot(w, ec[1])
-        model = 0.5 * (a - 1j * b) * w0 + 0.5 * (a + 1j * b) * er1 * er1 * w2 + d * er1 * w1
+        y = yrow[:rows] * er1
+        w = lay.hann
+        e1 = np.exp(-1j * omega * lay.v)
+        w1 = np.dot(w, e1)
+        w2 = np.dot(w, e1 * e1)
+        model = (
+            0.5 * (a - 1j * b) * lay.hann_sum + 0.5 * (a + 1j * b) * er1 * er1 * w2 + d * er1 * w1
+        )
         res = y - model
         # 2*rows real values, 4 fitted parameters
         power = float(np.sum(res.real**2 + res.imag**2)) / max(1, rows - 2)
-        return power / float(np.dot(w, w))
-
-
-_HANN_ROWS: dict[int, np.ndarray] = {}
-
-
-def _hann_row(m: int) -> np.ndarray:
-    w = _HANN_ROWS.get(m)
-    if w is None:
-        if len(_HANN_ROWS) > 16:
-            _HANN_ROWS.clear()
-        w = _HANN_ROWS[m] = np.hanning(m + 2)[1:-1]
-    return w
+        return power / lay.hann_energy
 
 
 def _fit_step(g: _Gate, omega: float, ab: tuple[float, float] | None):
@@ -261,13 +316,15 @@ def _fit_step(g: _Gate, omega: float, ab: tuple[float, float] | None):
     # Centred t makes sum cos*sin, sum t cos^2, sum t sin^2, sum t cos and
     # sum t^2 sin cos vanish, which leaves these Gram entries.
     tcs = 0.5 * s2t  # sum t sin cos
-    ttcc = 0.5 * (g.tt + c2tt)
-    ttss = 0.5 * (g.tt - c2tt)
-    g3 = np.array([[cc, 0.0, c1], [0.0, ss, 0.0], [c1, 0.0, float(n)]])
-    rhs3 = np.array([xc, xs, g.sum_x])
-    try:
-        a3, b3, d3 = np.linalg.solve(g3, rhs3)
-    except np.linalg.LinAlgError:
+    ttcc = 0.5 * (g.lay.tt + c2tt)
+    ttss = 0.5 * (g.lay.tt - c2tt)
+    # Three-parameter Gram [[cc, 0, c1], [0, ss, 0], [c1, 0, n]]: b decouples.
+    det = cc * n - c1 * c1
+    if det > 0 and ss > 0:
+        a3 = (xc * n - c1 * g.sum_x) / det
+        d3 = (cc * g.sum_x - c1 * xc) / det
+        b3 = xs / ss
+    else:
         a3, b3, d3 = 0.0, 0.0, g.sum_x / n
     a, b = (a3, b3) if ab is None else ab
     dc = -a * tcs  # sum D cos
@@ -275,20 +332,39 @@ def _fit_step(g: _Gate, omega: float, ab: tuple[float, float] | None):
     d1 = -a * s1t  # sum D
     dd = a * a * ttss + b * b * ttcc  # sum D^2
     xd = -a * xts + b * xtc
-    g4 = np.array(
-        [
-            [cc, 0.0, c1, dc],
-            [0.0, ss, 0.0, ds],
-            [c1, 0.0, float(n), d1],
-            [dc, ds, d1, dd],
-        ]
-    )
-    rhs4 = np.array([xc, xs, g.sum_x, xd])
-    try:
-        sol = np.linalg.solve(g4, rhs4)
-    except np.linalg.LinAlgError:
-        sol = np.array([a3, b3, d3, 0.0])
+    g4 = [
+        [cc, 0.0, c1, dc],
+        [0.0, ss, 0.0, ds],
+        [c1, 0.0, float(n), d1],
+        [dc, ds, d1, dd],
+    ]
+    sol = _cholesky_solve(g4, [xc, xs, g.sum_x, xd])
+    if sol is None:
+        sol = [a3, b3, d3, 0.0]
     return sol, (a3, b3, d3, xc, xs)
+
+
+def _cholesky_solve(a: list[list[float]], b: list[float]) -> list[float] | None:
+    """Solve a small symmetric positive-definite system in plain floats (a 4x4 Gram
+    matrix costs more to hand to LAPACK than to solve here). None if not positive."""
+    n = len(b)
+    low = [[0.0] * n for _ in range(n)]
+    for i in range(n):
+        for j in range(i + 1):
+            acc = a[i][j] - sum(low[i][k] * low[j][k] for k in range(j))
+            if i == j:
+                if not acc > 0.0:
+                    return None
+                low[i][i] = math.sqrt(acc)
+            else:
+                low[i][j] = acc / low[j][j]
+    y = [0.0] * n
+    for i in range(n):
+        y[i] = (b[i] - sum(low[i][k] * y[k] for k in range(i))) / low[i][i]
+    x = [0.0] * n
+    for i in reversed(range(n)):
+        x[i] = (y[i] - sum(low[k][i] * x[k] for k in range(i + 1, n))) / low[i][i]
+    return x
 
 
 _HANN: dict[int, np.ndarray] = {}
