@@ -175,19 +175,32 @@ def read_readings_csv(path: str | Path) -> list[ReadingSeries]:
             raise InputError(
                 f"{path}: no {need!r} column in the header (found: {', '.join(header)[:200]})"
             )
-    groups: dict[str, list[tuple[str, dict]]] = {}
+    # One run per stretch of rows with the same `file` value; with a `file` column, a
+    # time that goes back also starts a new run (the same recording analysed twice).
+    runs: list[tuple[str, list[tuple[str, dict]]]] = []
+    has_file = "file" in header
     for (lineno, _), cells in zip(lines[1:], rows_raw[1:], strict=True):
         where = f"{path}:{lineno}"
         if len(cells) != len(header):
             raise InputError(f"{where}: {len(cells)} cells, the header has {len(header)}")
         row = dict(zip(header, cells, strict=True))
-        groups.setdefault(row.get("file", "") or "", []).append((where, row))
-    if not groups:
+        name = row.get("file", "") or ""
+        if not runs or runs[-1][0] != name or (has_file and _goes_back(runs[-1][1], row)):
+            runs.append((name, []))
+        runs[-1][1].append((where, row))
+    if not runs:
         raise InputError(f"{path}: a header row but no readings")
     return [
-        _series(f"{path}" + (f" [{name}]" if name and len(groups) > 1 else ""), rows)
-        for name, rows in groups.items()
+        _series(f"{path}" + (f" [{name}]" if name and len(runs) > 1 else ""), rows)
+        for name, rows in runs
     ]
+
+
+def _goes_back(rows: list[tuple[str, dict]], row: dict) -> bool:
+    try:
+        return float(row.get("t_s", "")) <= float(rows[-1][1].get("t_s", ""))
+    except ValueError:
+        return False  # reported with its line by _series
 
 
 def read_readings_json(path: str | Path) -> list[ReadingSeries]:
