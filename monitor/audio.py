@@ -12,6 +12,7 @@ machine without PortAudio.
 from __future__ import annotations
 
 import math
+import numbers
 import queue
 import threading
 import time
@@ -33,7 +34,8 @@ SOUNDDEVICE_HELP = (
     "\"pip install 'swingmeter[audio]'\" (or 'pip install sounddevice')"
 )
 
-# Extra wait for the first buffer: sound servers can take a while to start a stream.
+# Extra wait for the first buffer: sound servers can take a while to start a stream
+# (a PulseAudio null sink was seen to take up to about 2 s).
 _STARTUP_ALLOWANCE_S = 5.0
 
 
@@ -261,10 +263,11 @@ class SoundCardSource:
         In `iq` mode, take I from the second channel and Q from the first.
     block_frames : int
         Frames per block handed on (default 4096, 85 ms at 48 kHz). PortAudio chooses its
-        own buffer size (blocksize=0, its most robust setting; a fixed size delayed the
-        first buffer by about 2 s through ALSA's pulse plugin) with a latency of about
-        one block; the consumer joins whole buffers into blocks of at least
-        `block_frames` (shorter only before a loss and at the end).
+        own buffer size (blocksize=0: sounddevice's documentation strongly recommends a
+        fixed size only when an algorithm needs one, as it may add a layer of buffering)
+        for a latency of about one block; the consumer
+        joins whole buffers into blocks of at least `block_frames` (shorter only before
+        a loss and at the end).
     queue_blocks : int
         Bound of the queue between the callback and the consumer, in PortAudio buffers
         (default 256, several seconds at any usual latency). When it is full, new
@@ -306,7 +309,7 @@ class SoundCardSource:
     ) -> None:
         if mode not in MODES:
             raise ValueError(f"mode={mode!r} must be one of {', '.join(MODES)}")
-        if not (isinstance(fs_hz, (int, float)) and math.isfinite(fs_hz) and fs_hz > 0):
+        if not (isinstance(fs_hz, numbers.Real) and math.isfinite(fs_hz) and fs_hz > 0):
             raise ValueError(f"fs_hz={fs_hz} must be a positive sample rate")
         if isinstance(channel, bool) or not isinstance(channel, int) or channel < 0:
             raise ValueError(f"channel={channel!r} must be an integer >= 0")
