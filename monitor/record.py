@@ -206,8 +206,26 @@ def read_sidecar(path: str | os.PathLike, *, missing_ok: bool = False) -> dict[s
     return data
 
 
-def meta_from_sidecar(data: dict[str, Any], *, source: str, frames: int | None = None):
-    """Build the StreamMeta of a recording from its sidecar (as read by `read_sidecar`)."""
+def meta_from_sidecar(
+    data: dict[str, Any], *, source: str, frames: int | None = None
+) -> StreamMeta:
+    """Build the StreamMeta of a recording from its sidecar.
+
+    Parameters
+    ----------
+    data : dict
+        The sidecar, as returned by `read_sidecar` (types already checked).
+    source : str
+        The recording's path, for messages.
+    frames : int or None
+        Frames in the file, if known.
+
+    Returns
+    -------
+    StreamMeta
+        With the recorded mode, rate, channels (of the file), dial, sideband, harmonic,
+        clock_ppm and profile; `extra` holds the recording device and UTC start.
+    """
     return StreamMeta(
         source=source,
         fs_hz=float(data["fs_hz"]),

@@ -159,6 +159,12 @@ class TestRecorder:
             for block in blocks_of(META, FS // 4):
                 rec.write(block)
         assert rec.container == "RF64"
+        # An expected 10 h of 48 kHz stereo FLOAT (13.8 GB) is RF64 from the start.
+        meta = META.with_(mode="iq", channels=2)
+        with Recorder(tmp_path / "long.wav", meta, duration_s=10 * 3600) as long_rec:
+            long_rec.write(Block(tone(0, 480, "iq"), 0, meta))
+        assert long_rec.container == "RF64"
+        assert sf.info(tmp_path / "long.wav").frames == 480
         # libsndfile's auto-downgrade leaves a RIFF/WAVE file while it is under 4 GiB.
         assert out.read_bytes()[:4] == b"RIFF"
         data, _ = sf.read(out)
