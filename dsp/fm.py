@@ -269,9 +269,10 @@ class FmDemodulator:
     ValueError
         If a rate or bandwidth is not positive, the carrier is outside the allowed range,
         or (real input) the IF band does not fit between 0 Hz and fs/2:
-        ``carrier - bw/2 <= 0`` or ``carrier + bw/2 >= fs/2``, or is so close to 0 Hz
-        that the mixer image at -2 * carrier cannot be rejected with a filter of at most
-        16385 taps.
+        ``carrier - bw/2 <= 0`` or ``carrier + bw/2 >= fs/2``, or comes so close to
+        0 Hz or fs/2 that the transition band needs more than 16385 taps (real input
+        rejects everything below half the gap between the band and 0 Hz -- DC, hum, the
+        mixer image at -2 * carrier -- by stopband_db, with about 10 fs / gap taps).
 
     References
     ----------
@@ -334,8 +335,7 @@ class FmDemodulator:
             dec = max(1, min(dec, int(math.floor(fs / fmin + 1e-9))))
         fs_out = fs / dec
         # Transition band: wide enough for a short filter, narrow enough that nothing
-        # folds into the passband at the output rate and, for real input, that the
-        # mixer image (nearest edge at 2*carrier - bw/2 from 0 Hz) is in the stopband.
+        # folds into the passband at the output rate.
         if fs_out <= bw:
             raise ValueError(
                 f"if_bandwidth_hz={if_bandwidth_hz} leaves no transition band at the output "
@@ -343,14 +343,17 @@ class FmDemodulator:
             )
         tw = min(0.25 * bw, fs_out - bw)
         if kind == "real":
-            tw = min(tw, 2.0 * fc - bw)
+            # Low audio (DC, hum: below half the gap between the band and 0 Hz), the mixer
+            # image at -2 carrier and the mirror beyond fs/2 must all fall in the
+            # stopband, not in the transition band.
+            tw = min(tw, 0.5 * (fc - bw / 2.0), fs / 2.0 - (fc + bw / 2.0))
         numtaps, beta = ssig.kaiserord(att, tw / (fs / 2.0))
         numtaps |= 1  # odd: integer group delay
         if numtaps > self._MAX_TAPS:
             raise ValueError(
                 f"carrier_hz={carrier_hz}, if_bandwidth_hz={if_bandwidth_hz}: the IF band is "
-                f"too close to 0 Hz (transition {tw:.3g} Hz needs {numtaps} taps); move the "
-                "carrier up or narrow the bandwidth"
+                f"too close to 0 Hz or fs/2 (transition {tw:.3g} Hz needs {numtaps} taps); "
+                "move the carrier or narrow the bandwidth"
             )
         cutoff = min(bw / 2.0 + tw / 2.0, 0.5 * fs * 0.999999)
         h = ssig.firwin(numtaps, cutoff, window=("kaiser", beta), fs=fs)

@@ -140,6 +140,8 @@ class SpectrumAverager:
         kaiser_beta: float = 14.0,
         overlap: float = 0.5,
     ) -> None:
+        if isinstance(fs_hz, bool) or not isinstance(fs_hz, (int, float, np.number)):
+            raise TypeError(f"fs_hz must be a number, got {type(fs_hz).__name__}")
         fs = float(fs_hz)
         if not (math.isfinite(fs) and fs > 0):
             raise ValueError(f"fs_hz={fs_hz} must be finite and > 0")
