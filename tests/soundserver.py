@@ -235,7 +235,9 @@ def pulse_server():
 
 
 def sox_tone(path, seconds, spec, channels=2, fs_hz=SINK_RATE_HZ):
-    """A tone file written by sox, e.g. spec = ["sine", "1234.5"]."""
+    """A tone file written by sox (an independent generator), e.g. spec = ["sine", "1234.5"]."""
+    if shutil.which("sox") is None:
+        _unavailable("sox not found (Debian: apt-get install sox)")
     subprocess.run(
         ["sox", "-n", "-r", str(fs_hz), "-c", str(channels), "-b", "24", str(path), "synth",
          str(seconds), *spec],

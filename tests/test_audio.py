@@ -157,17 +157,13 @@ class TestSoundCardSource:
         assert stats.dropped_blocks == 0 and stats.overflows == 0
 
     def test_iq_channels(self, pulse_server, tmp_path):
-        from tests.soundserver import fft_peak_hz, steady_part
+        from tests.soundserver import fft_peak_hz, sox_tone, steady_part
 
         wav = tmp_path / "iq.wav"
         # sox: left sin(wt), right sin(wt + 90 deg) = cos(wt) (phase 25 % of a cycle).
         # I + jQ = sin + j cos = j exp(-jwt): the tone sits at -1500 Hz; swapped at +1500.
         spec = ["sine", "1500", "0", "0", "sine", "1500", "0", "25", "vol", "0.4"]
-        subprocess.run(
-            ["sox", "-n", "-r", str(FS), "-c", "2", "-b", "24", str(wav), "synth", "2", *spec],
-            check=True,
-            capture_output=True,
-        )
+        sox_tone(wav, 2, spec)
         source = SoundCardSource("pulse", FS, "iq", block_frames=4096, duration_s=3.0)
         blocks = capture_while_playing(pulse_server, wav, source)
         assert blocks[0].meta.mode == "iq" and blocks[0].meta.channels == 2

@@ -60,6 +60,39 @@ class TestDevices:
         assert "pulse" in done.stdout and "ALSA" in done.stdout
 
 
+class TestMetaFromArgs:
+    def test_fields(self):
+        from monitor import profiles
+        from monitor.commands.record import meta_from_args
+
+        parser = build_parser()
+        args = parser.parse_args(
+            ["record", "--mode", "iq", "--channel", "2", "--dial", "145.5M", "--harmonic",
+             "3", "--sideband", "lower", "--rate", "96k", "--duration", "5", "x.wav"]
+        )  # fmt: skip
+        meta = meta_from_args(args)
+        assert (meta.mode, meta.fs_hz, meta.channels) == ("iq", 96000.0, 4)
+        assert (meta.dial_hz, meta.center_hz, meta.harmonic) == (145.5e6, 145.5e6, 3)
+        assert (meta.sideband, meta.clock_ppm, meta.profile) == ("lower", 0.0, None)
+        profiles.update("bench-a", clock_ppm=4.25)  # in the tests' private config dir
+        args = parser.parse_args(["record", "--profile", "bench-a", "--duration", "1", "x.wav"])
+        meta = meta_from_args(args)
+        assert (meta.clock_ppm, meta.profile, meta.dial_hz) == (4.25, "bench-a", None)
+
+    def test_raises(self, capsys):
+        assert main(["record", "--profile", "nobody", "--duration", "1", "x.wav"]) == 2
+        assert "no bench profile named 'nobody'" in capsys.readouterr().err
+        for bad, message in (
+            (["--harmonic", "0"], "harmonic must be 1 or more"),
+            (["--channel", "-1"], "channel must be 0 or more"),
+            (["--rate=-48k"], "frequency must be positive"),
+            (["--clock-ppm", "1", "--profile", "a"], "not allowed with argument"),
+        ):
+            with pytest.raises(SystemExit):
+                main(["record", "--duration", "1", *bad, "x.wav"])
+            assert message in capsys.readouterr().err
+
+
 class TestRecord:
     def test_help(self):
         sub = next(a for a in build_parser()._actions if a.dest == "command")
