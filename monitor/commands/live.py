@@ -145,7 +145,11 @@ def add_parser(sub) -> argparse.ArgumentParser:
         action="store_true",
         help="print one JSON object per reading (the keys of `analyze --readings`)",
     )
-    out.add_argument("--log", metavar="PATH.csv", help="append nothing, write readings as CSV")
+    out.add_argument(
+        "--log",
+        metavar="PATH.csv",
+        help="write every reading to PATH.csv as it comes (header first, rows flushed)",
+    )
     return p
 
 
