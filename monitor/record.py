@@ -522,7 +522,7 @@ class Recorder:
                     if time.monotonic() - last_sync > _FSYNC_EVERY_S:
                         self._sink.sync()
                         last_sync = time.monotonic()
-                except (RuntimeError, OSError, AssertionError) as exc:
+                except Exception as exc:  # any failure ends the file cleanly, never the caller
                     held = self._frames_written
                     self._error = InputError(
                         f"cannot write {self.path}: {_reason(exc, self.path)}; the file holds "
@@ -631,11 +631,9 @@ class Recorder:
             self._start_time = time.time()
         try:
             self._write_sidecar(complete=self._error is None, extra=extra)
-        except OSError as exc:
+        except InputError:
             if self._error is None:
-                raise InputError(
-                    f"cannot write {self.sidecar}: {_reason(exc, self.sidecar)}"
-                ) from None
+                raise
         if self._error is not None:
             raise self._error
         self._summary = RecordingSummary(
@@ -700,9 +698,14 @@ class Recorder:
         fields = self._sidecar_fields(complete)
         if extra:
             fields.update(_jsonable(extra))
-        _write_atomic(self.sidecar, json.dumps(fields, indent=2) + "\n")
-        if self.sigmf_meta_path is not None:
-            _write_atomic(self.sigmf_meta_path, self._sigmf_text(fields))
+        target = self.sidecar
+        try:
+            _write_atomic(target, json.dumps(fields, indent=2) + "\n")
+            if self.sigmf_meta_path is not None:
+                target = self.sigmf_meta_path
+                _write_atomic(target, self._sigmf_text(fields))
+        except OSError as exc:
+            raise InputError(f"cannot write {target}: {_reason(exc, target)}") from None
 
     def _sigmf_text(self, fields: dict[str, Any]) -> str:
         from sigmf import SigMFFile
