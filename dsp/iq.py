@@ -21,7 +21,7 @@ import numpy as np
 
 from dsp.fm import modulation_index
 
-__all__ = ["IqHealth", "iq_correct", "iq_health", "modulation_index"]
+__all__ = ["IqHealth", "image_rejection_db", "iq_correct", "iq_health", "modulation_index"]
 
 
 @dataclass(frozen=True)
