@@ -28,6 +28,8 @@ References
 
 from __future__ import annotations
 
+import contextlib
+import io
 import itertools
 import math
 import warnings as _warnings
@@ -690,24 +692,24 @@ def warmup_time(
 
 
 def octave_factors(n_readings: int, *, kind: str = "oadev") -> np.ndarray:
-    """Averaging factors m = 1, 2, 4, ... that `kind` can use on `n_readings` readings.
+    """Averaging factors m = 1, 2, 4, ... that give `kind` at least two terms.
 
     Parameters
     ----------
     n_readings : int
-        Number of contiguous frequency readings.
+        Number of contiguous frequency readings N.
     kind : {"adev", "oadev", "mdev", "tdev"}
-        ADEV and OADEV need 2*m readings, MDEV and TDEV 3*m.
+        OADEV has N-2m+1 terms, so needs 2m+1 <= N; ADEV (floor(N/m)-1 terms), MDEV and
+        TDEV (N-3m+2 terms) need 3m <= N.
 
     Returns
     -------
     numpy.ndarray of int
     """
-    span = 3 if kind in ("mdev", "tdev") else 2
-    if n_readings < span:
+    top = (n_readings - 1) / 2 if kind == "oadev" else n_readings / 3
+    if top < 1:
         return np.zeros(0, dtype=np.int64)
-    top = int(math.floor(math.log2(n_readings / span)))
-    return 2 ** np.arange(top + 1, dtype=np.int64)
+    return 2 ** np.arange(int(math.floor(math.log2(top))) + 1, dtype=np.int64)
 
 
 _KINDS = ("adev", "oadev", "mdev")
@@ -864,16 +866,28 @@ def allan_family(
     acc: dict[str, dict[int, list]] = {k: {} for k in _KINDS}
     for a, b in segs:
         seg = yv[a:b]
-        need = {"adev": 2, "oadev": 2, "mdev": 3}
+        n_seg = seg.size
+        # Taus with at least two terms in this segment (allantools drops single-term
+        # estimates, and fails when nothing is left): OADEV N-2m+1, ADEV floor(N/m)-1,
+        # MDEV N-3m+2 terms.
+        usable = {
+            "oadev": ms[2 * ms <= n_seg - 1],
+            "adev": ms[3 * ms <= n_seg],
+            "mdev": ms[3 * ms <= n_seg],
+        }
         for kind in _KINDS:
-            use = ms[ms * need[kind] <= seg.size]
+            use = usable[kind]
             if use.size == 0:
                 continue
-            with _warnings.catch_warnings():
+            # allantools prints notes on stdout; dsp prints nothing
+            with _warnings.catch_warnings(), contextlib.redirect_stdout(io.StringIO()):
                 _warnings.simplefilter("ignore")
-                taus, devs, _err, ns = fns[kind](
-                    seg, rate=rate, data_type="freq", taus=use.astype(float) * tau0_s
-                )
+                try:
+                    taus, devs, _err, ns = fns[kind](
+                        seg, rate=rate, data_type="freq", taus=use.astype(float) * tau0_s
+                    )
+                except UserWarning:  # allantools' "nothing remains"
+                    continue
             for tau, dev, n in zip(taus, devs, ns, strict=True):
                 if n <= 0 or not math.isfinite(dev):
                     continue
@@ -883,7 +897,10 @@ def allan_family(
                 slot[1] += int(n)
                 slot[2].append(seg.size + 1)  # phase points of this segment
     if not acc["oadev"]:
-        raise ValueError(f"no tau can be computed from {yv.size} readings (need at least 2)")
+        raise ValueError(
+            f"no tau can be computed from {yv.size} readings in {len(segs)} segment(s) "
+            "(need at least 3 contiguous readings)"
+        )
     pooled = {}
     for kind in _KINDS:
         m_sorted = sorted(acc[kind])
@@ -1354,7 +1371,7 @@ class StabilityTracker:
             ("oadev", self._o_sum, self._o_n),
             ("mdev", self._m_sum, self._m_n),
         ):
-            keep = cnt > 0
+            keep = cnt > 1  # as allan_family: a single term is no estimate
             ms = self._ms[keep]
             taus = ms * self.tau0_s
             if kind == "oadev":

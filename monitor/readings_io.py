@@ -165,10 +165,13 @@ def read_readings_csv(path: str | Path) -> list[ReadingSeries]:
             raise InputError(f"{path}: not a text (UTF-8) CSV file") from None
     if not lines:
         raise InputError(f"{path}: empty file, expected a header row with t_s,frequency_hz")
-    try:
-        rows_raw = list(csv.reader(line for _, line in lines))
-    except csv.Error as exc:
-        raise InputError(f"{path}: not a readable CSV file ({exc})") from None
+    # One line, one row: a quoted field never spans lines in a readings file.
+    rows_raw = []
+    for lineno, line in lines:
+        try:
+            rows_raw.append(next(csv.reader([line.rstrip("\r\n")]), []))
+        except csv.Error as exc:
+            raise InputError(f"{path}:{lineno}: not a readable CSV line ({exc})") from None
     header = [h.strip() for h in rows_raw[0]]
     for need in ("t_s", "frequency_hz"):
         if need not in header:
