@@ -270,6 +270,15 @@ class TestFmDemodulator:
         ref = 0.5 * np.abs(sspec.jv(np.arange(-3, 4), 2.0))
         np.testing.assert_allclose(amp, ref, atol=2e-4)
 
+    def test_output_rate_options(self, gen):
+        # min_fs_out_hz keeps room for a 15 kHz audio band (2.2 x 15 kHz); without droop
+        # compensation the output still follows the ffmpeg expression at its stated times
+        # (sinc droop at 800 Hz and 48 kHz: 0.05% [computed]).
+        dm = FmDemodulator(FS, 9000.0, 8000.0, min_fs_out_hz=33000.0, droop_compensation=False)
+        assert dm.fs_out_hz == pytest.approx(48000.0) and dm.decimation == 1
+        f = dm.process(_beat(gen)[:FS])
+        assert np.max(np.abs(f - self._truth(dm, f.size))) < 0.005 * 1600.0
+
     def test_empty_and_state(self):
         dm = FmDemodulator(FS, 9000.0, 8000.0)
         assert dm.process(np.zeros(0)).size == 0
@@ -298,6 +307,14 @@ class TestFmDemodulator:
             FmDemodulator(FS, 9000.0, 8000.0).process(np.ones((10, 2)))
         with pytest.raises(ValueError, match="finite"):
             FmDemodulator(FS, 9000.0, 8000.0).process(np.array([1.0, np.nan]))
+        with pytest.raises(ValueError, match=r"oversample=0\.5"):
+            FmDemodulator(FS, 9000.0, 8000.0, oversample=0.5)
+        with pytest.raises(ValueError, match="stopband_db=10"):
+            FmDemodulator(FS, 9000.0, 8000.0, stopband_db=10)
+        with pytest.raises(ValueError, match="min_fs_out_hz=96000"):
+            FmDemodulator(FS, 9000.0, 8000.0, min_fs_out_hz=96000)
+        with pytest.raises(TypeError, match="fs_hz must be a number"):
+            FmDemodulator("48k", 9000.0, 8000.0)
 
 
 class TestDeviationFigures:
