@@ -337,6 +337,9 @@ def occupied_bandwidth_hz(spectrum: Spectrum, fraction: float = 0.99) -> tuple[f
     p = _check_spectrum(spectrum)
     f = np.asarray(spectrum.freqs_hz, dtype=np.float64)
     edges = np.concatenate(([f[0] - spectrum.bin_hz / 2], f + spectrum.bin_hz / 2))
+    if spectrum.onesided:
+        # The DC and Nyquist bins of a one-sided spectrum are half bins.
+        edges = np.clip(edges, 0.0, spectrum.fs_hz / 2)
     cum = np.concatenate(([0.0], np.cumsum(p)))
     cum /= cum[-1]
     tail = (1.0 - q) / 2.0
