@@ -41,6 +41,7 @@ class AnalysisSettings:
     filter: str = "none"
     mains: str = "auto"
     n_harmonics: int = 10
+    fm: object | None = None  # monitor.fm_engine.FmSettings for beat / iq
 
     def __post_init__(self):
         if not (GATE_MIN_S <= self.gate_s <= GATE_MAX_S):
@@ -514,6 +515,11 @@ class Engine:
         self._fill = 0
         return out
 
+    def extra(self) -> dict:
+        """Mode-specific summary sections (`fm`, `iq`) as JSON-able dicts."""
+        fn = getattr(self.processor, "extra", None)
+        return fn() if fn is not None else {}
+
     def summary(self, extra_warnings: Iterable[str] = ()) -> Summary:
         p = self.processor
         level = p._levels.summary()
@@ -575,7 +581,7 @@ def run(
             progress(engine.frames, source.meta.frames)
     engine.finish()
     summary = engine.summary(extra_warnings=source.warnings)
-    return Analysis(source.meta, engine.readings, summary)
+    return Analysis(source.meta, engine.readings, summary, engine.extra())
 
 
 def analyze_file(

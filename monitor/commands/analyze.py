@@ -7,12 +7,14 @@ import sys
 
 from monitor.blocks import MODES
 from monitor.errors import InputError
-from monitor.units import positive_frequency_arg
+from monitor.units import frequency_arg, positive_frequency_arg
 
 HELP = "measure recordings: frequency with uncertainty, level, audio quality"
 EPILOG = """\
 examples:
   swingmeter analyze tone.wav
+  swingmeter analyze to7-beat.wav --mode beat --dial 97.3M --sideband upper --harmonic 3
+  swingmeter analyze capture.sigmf-meta --mode iq --iq-correct --json
   swingmeter analyze tone.wav --near 1000 --gate 0.5 --readings --json
   swingmeter analyze rx-audio.wav --filter psophometric --csv readings.csv
   swingmeter analyze ref-1khz.wav --profile bench-a
@@ -101,6 +103,73 @@ def add_measure_options(p: argparse.ArgumentParser) -> None:
     )
 
 
+def add_fm_options(p: argparse.ArgumentParser) -> None:
+    """FM options for beat / iq (shared with `live`)."""
+    g = p.add_argument_group("FM (beat and iq modes)")
+    g.add_argument(
+        "--dial",
+        type=frequency_arg,
+        metavar="HZ",
+        help="receiver dial frequency (beat) or I/Q centre frequency (iq; SigMF recordings "
+        "carry it), giving the RF frequency; accepts 100.1M, 100.1e6",
+    )
+    g.add_argument(
+        "--sideband",
+        choices=("upper", "lower"),
+        default=None,
+        help="receiver sideband in beat mode: RF = dial + beat (upper) or dial - beat "
+        "(lower) (default: upper)",
+    )
+    g.add_argument(
+        "--harmonic",
+        type=_harmonic_arg,
+        default=None,
+        metavar="N",
+        help="the receiver hears the Nth harmonic: fundamental = RF / N, fundamental "
+        "deviation = RF deviation / N (default: 1)",
+    )
+    g.add_argument(
+        "--carrier-near",
+        type=frequency_arg,
+        metavar="HZ",
+        help="use the carrier near HZ (within the recording's band) instead of the strongest",
+    )
+    g.add_argument(
+        "--if-bandwidth",
+        type=positive_frequency_arg,
+        metavar="HZ",
+        help="demodulator bandwidth (default: from the measured signal width)",
+    )
+    g.add_argument(
+        "--post-filter",
+        choices=("none", "300-3000", "20-15k"),
+        default=None,
+        help="filter after the discriminator for the deviation figures (default: 300-3000 "
+        "for beat, 20-15k for iq when the bandwidth allows)",
+    )
+    g.add_argument(
+        "--deemphasis",
+        choices=("none", "50us", "75us"),
+        default="none",
+        help="de-emphasis after the discriminator (default: none)",
+    )
+    g.add_argument(
+        "--iq-correct",
+        action="store_true",
+        help="iq: correct DC offset, gain and phase imbalance before demodulating",
+    )
+
+
+def _harmonic_arg(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"harmonic must be a whole number: {text!r}") from None
+    if not 1 <= n <= 1000:
+        raise argparse.ArgumentTypeError(f"harmonic must be 1 to 1000: {text!r}")
+    return n
+
+
 def add_parser(sub) -> argparse.ArgumentParser:
     p = sub.add_parser(
         "analyze",
@@ -113,6 +182,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument("files", nargs="+", metavar="FILE", help="recordings to analyse")
     add_input_options(p)
     add_measure_options(p)
+    add_fm_options(p)
     p.add_argument("--readings", action="store_true", help="include every gate's reading")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.add_argument("--csv", metavar="PATH", help="write the readings to PATH as CSV")
@@ -132,10 +202,22 @@ def mode_for(path: str | None, args) -> str:
 
 def settings_from_args(args, mode: str | None = None):
     from monitor.engine import AnalysisSettings
+    from monitor.fm_engine import FmSettings
 
+    mode = mode or args.mode or "audio"
     try:
+        fm = None
+        if mode in ("beat", "iq"):
+            fm = FmSettings(
+                carrier_near_hz=getattr(args, "carrier_near", None),
+                if_bandwidth_hz=getattr(args, "if_bandwidth", None),
+                post_filter=getattr(args, "post_filter", None),
+                deemphasis=getattr(args, "deemphasis", "none") or "none",
+                iq_correct=bool(getattr(args, "iq_correct", False)),
+            )
         return AnalysisSettings(
-            mode=mode or args.mode or "audio",
+            fm=fm,
+            mode=mode,
             gate_s=args.gate,
             near_hz=args.near,
             band_hz=tuple(args.band) if args.band else None,
@@ -157,19 +239,26 @@ def meta_from_args(args) -> dict:
         fields["profile"] = args.profile
     elif getattr(args, "clock_ppm", None) is not None:
         fields["clock_ppm"] = args.clock_ppm
+    for key in ("dial", "sideband", "harmonic"):
+        value = getattr(args, key, None)
+        if value is not None:
+            fields["dial_hz" if key == "dial" else key] = value
     return fields
 
 
 def analyze_one(path: str, args, settings, progress=None):
     from monitor.engine import analyze_file
 
+    meta = meta_from_args(args)
+    if settings.mode == "iq" and meta.get("dial_hz") is not None:
+        meta["center_hz"] = meta["dial_hz"]  # the user's centre wins over the file's
     return analyze_file(
         path,
         settings=settings,
         channel=args.channel,
         mix=args.mix,
         swap_iq=args.swap_iq,
-        meta=meta_from_args(args),
+        meta=meta,
         progress=progress,
     )
 

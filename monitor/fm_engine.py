@@ -1,0 +1,735 @@
+"""FM modes of the engine: `beat` (a real beat note) and `iq` (complex I/Q).
+
+Per gate: find the carrier (first gate) and demodulate with a streaming discriminator;
+measure the carrier from a least-squares line through the baseband phase, the deviation
+from the post-demodulation-filtered instantaneous frequency, the modulating tone with the
+counter and the audio-quality meter, and the carrier-to-noise ratio from the envelope.
+Over the record: the carrier joined phase-coherently, deviation statistics and
+percentiles, BS.412 modulation power, Carson / occupied / -26 dB bandwidths from the
+averaged baseband spectrum, and the Bessel-line fit of single-tone modulation.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from dsp import fm as dfm
+from dsp import quality as dq
+from dsp import spectrum as dspec
+from dsp import tone as dt
+from monitor.blocks import StreamMeta
+from monitor.errors import InputError
+
+POST_FILTERS = ("none", "300-3000", "20-15k")
+# Post-demodulation output discarded after each (re)start while the filter settles
+# (about eight time constants of its lowest corner).
+SETTLE_S = {"none": 0.005, "300-3000": 0.03, "20-15k": 0.3}
+DEEMPHASIS = {"none": None, "50us": 50e-6, "75us": 75e-6}
+MIN_IF_BANDWIDTH_HZ = 200.0
+# The carrier cluster must stand this far above the spectral floor (dB) to count.
+CARRIER_MIN_SNR_DB = 15.0
+# Below this integrated CNR the discriminator output is mostly clicks.
+CNR_MIN_DB = 3.0
+
+
+@dataclass(frozen=True)
+class FmSettings:
+    """FM options (part of AnalysisSettings)."""
+
+    carrier_near_hz: float | None = None
+    if_bandwidth_hz: float | None = None
+    post_filter: str | None = None  # None: the mode's default
+    deemphasis: str = "none"
+    iq_correct: bool = False
+
+    def __post_init__(self):
+        if self.post_filter is not None and self.post_filter not in POST_FILTERS:
+            raise ValueError(f"post_filter={self.post_filter!r} must be one of {POST_FILTERS}")
+        if self.deemphasis not in DEEMPHASIS:
+            raise ValueError(f"deemphasis={self.deemphasis!r} must be one of {tuple(DEEMPHASIS)}")
+        if self.if_bandwidth_hz is not None and not self.if_bandwidth_hz > 0:
+            raise ValueError(f"if_bandwidth_hz={self.if_bandwidth_hz} must be positive")
+
+
+@dataclass(frozen=True)
+class DeviationSummary:
+    peak_pos_hz: float
+    peak_neg_hz: float
+    peak_avg_hz: float
+    rms_hz: float
+    rms_sqrt2_hz: float
+    tone_peak_hz: float | None
+    hold_hz: float
+    exceeded_10pct_hz: float
+    exceeded_1pct_hz: float
+    exceeded_0p1pct_hz: float
+    histogram: dict
+
+
+@dataclass(frozen=True)
+class BesselSummary:
+    mod_index: float
+    residual: float
+    carrier_depth_db: float
+    nearest_carrier_null: int
+    nearest_null_mod_index: float
+    lines_db: tuple[float, ...]  # k = -K..K, dB re the fitted unmodulated carrier
+
+
+@dataclass(frozen=True)
+class FmSummary:
+    carrier_hz: float
+    carrier_uncertainty_hz: float
+    carrier_method: str
+    rf_hz: float | None
+    rf_uncertainty_hz: float | None
+    fundamental_hz: float | None
+    fundamental_deviation_hz: float | None
+    dial_hz: float | None
+    sideband: str | None
+    harmonic: int
+    if_bandwidth_hz: float
+    post_filter: str
+    deemphasis: str
+    deviation: DeviationSummary
+    mod_tone_hz: float | None
+    mod_tone_uncertainty_hz: float | None
+    mod_index: float | None
+    bessel_mod_index: float | None
+    bessel: BesselSummary | None
+    carson_bw_hz: float | None
+    occupied_bw_hz: float | None
+    occupied_low_hz: float | None
+    occupied_high_hz: float | None
+    bw_26db_hz: float | None
+    mod_power_dbr: float | None
+    mod_power_window_s: float | None
+    mod_power_whole_record: bool | None
+    cnr_db: float | None
+    demod_snr_db: float | None
+    demod_sinad_db: float | None
+    demod_thd_percent: float | None
+
+
+@dataclass(frozen=True)
+class IqSummary:
+    dc_i: float
+    dc_q: float
+    gain_imbalance_db: float
+    phase_imbalance_deg: float
+    image_rejection_db: float
+    corrected: bool
+
+
+@dataclass
+class _GatePhase:
+    t_ref_s: float
+    f_hz: float
+    f_sigma_hz: float
+    phase: float
+    phase_sigma: float
+    contiguous: bool
+
+
+@dataclass
+class _Carrier:
+    nco_hz: float  # where the demodulator mixes
+    bandwidth_hz: float
+
+
+def rf_from_carrier(meta: StreamMeta, carrier_hz: float) -> float | None:
+    """RF frequency from the carrier found in the recording's band.
+
+    beat: RF = dial + carrier (upper sideband) or dial - carrier (lower sideband);
+    iq: RF = centre + offset (the centre from SigMF metadata or `--dial`).
+    """
+    if meta.mode == "iq":
+        center = meta.center_hz if meta.center_hz is not None else meta.dial_hz
+        return None if center is None else center + carrier_hz
+    if meta.dial_hz is None:
+        return None
+    return meta.dial_hz + carrier_hz if meta.sideband == "upper" else meta.dial_hz - carrier_hz
+
+
+def find_carrier(
+    x: np.ndarray, fs_hz: float, *, kind: str, near_hz: float | None = None
+) -> tuple[float, float, float]:
+    """Coarse carrier and signal width from one gate's spectrum.
+
+    The carrier of symmetric FM is the centre of its group of lines (its own line may be
+    nulled, a sideband may be the strongest). Take the significant spectral peaks, group
+    neighbours whose gaps stay within 2.5 times the typical line spacing (so one nulled
+    line does not split the group), keep the group holding the strongest peak (or the
+    peak nearest `near_hz`), and return its power-weighted centre, its width and the SNR
+    of its strongest peak: (centre_hz, width_hz, snr_db).
+    """
+    n = x.shape[0]
+    w = np.hanning(n)
+    if kind == "complex":
+        spec = np.fft.fftshift(np.fft.fft((x - x.mean()) * w))
+        freqs = np.fft.fftshift(np.fft.fftfreq(n, 1.0 / fs_hz))
+    else:
+        spec = np.fft.rfft((x - x.mean()) * w)
+        freqs = np.fft.rfftfreq(n, 1.0 / fs_hz)
+        spec[: max(1, int(20.0 / (fs_hz / n)))] = 0  # DC and sub-audio are not a carrier
+    p = spec.real**2 + spec.imag**2
+    floor = float(np.median(p)) + 1e-300
+    inner = p[1:-1]
+    is_peak = (inner >= p[:-2]) & (inner > p[2:])
+    peaks = np.nonzero(is_peak)[0] + 1
+    if peaks.size == 0:
+        raise InputError("no carrier found: the spectrum has no lines")
+    top = float(p[peaks].max())
+    keep = peaks[(p[peaks] > floor * 10 ** (CARRIER_MIN_SNR_DB / 10)) & (p[peaks] > top * 1e-6)]
+    if keep.size == 0:
+        raise InputError(
+            f"no carrier found: nothing stands {CARRIER_MIN_SNR_DB:.0f} dB above the noise"
+        )
+    if near_hz is not None:
+        k = int(keep[np.argmin(np.abs(freqs[keep] - near_hz))])
+        if abs(freqs[k] - near_hz) > max(0.1 * abs(near_hz), 200.0):
+            raise InputError(
+                f"no carrier found near {near_hz:g} Hz (the nearest line is at {freqs[k]:.1f} Hz)"
+            )
+    else:
+        k = int(keep[np.argmax(p[keep])])
+    snr_db = 10 * math.log10(p[k] / floor)
+    # typical spacing of the lines around the chosen one
+    order = np.argsort(np.abs(keep - k))[:16]
+    near_lines = np.sort(keep[order])
+    gaps = np.diff(near_lines)
+    spacing = float(np.median(gaps)) if gaps.size else 1.0
+    max_gap = max(3.0, 2.5 * spacing)
+    i = int(np.searchsorted(keep, k))
+    lo = hi = i
+    while lo > 0 and keep[lo] - keep[lo - 1] <= max_gap:
+        lo -= 1
+    while hi < keep.size - 1 and keep[hi + 1] - keep[hi] <= max_gap:
+        hi += 1
+    group = keep[lo : hi + 1]
+    # power-weighted centre over the group's bins (each peak with its two neighbours)
+    idx = np.unique(np.clip(np.concatenate([group - 1, group, group + 1]), 0, p.size - 1))
+    centre = float(np.sum(freqs[idx] * p[idx]) / np.sum(p[idx]))
+    width = float(freqs[group[-1]] - freqs[group[0]]) + spacing * fs_hz / n
+    return centre, width, snr_db
+
+
+def _phase_line(z: np.ndarray, fs_hz: float):
+    """Least-squares line through the unwrapped baseband phase.
+
+    Returns (offset_hz, phase_at_centre, t_centre_s, sigma_f_hz, sigma_phase, cnr_linear):
+    the uncertainties are those of white phase noise with variance var(|z|)/mean(|z|)^2
+    (noise splits equally between the envelope and the phase of a constant-envelope
+    signal).
+    """
+    n = z.shape[0]
+    ph = np.unwrap(np.angle(z))
+    t = (np.arange(n) - (n - 1) / 2.0) / fs_hz
+    tt = float(np.dot(t, t))
+    slope = float(np.dot(t, ph - ph.mean())) / tt
+    intercept = float(ph.mean())
+    env = np.abs(z)
+    a = float(env.mean())
+    var_env = float(env.var())
+    sigma_ph2 = max(var_env / (a * a), 1e-30) if a > 0 else math.inf
+    sigma_f = math.sqrt(sigma_ph2 / tt) / (2 * math.pi)
+    sigma_p = math.sqrt(sigma_ph2 / n)
+    cnr = 0.5 / sigma_ph2 if sigma_ph2 > 0 else math.inf
+    return slope / (2 * math.pi), intercept, (n - 1) / 2.0 / fs_hz, sigma_f, sigma_p, cnr
+
+
+class FmProcessor:
+    """`beat` and `iq` modes of the engine (see the module docstring)."""
+
+    def __init__(self, meta: StreamMeta, settings):
+        self.meta = meta
+        self.settings = settings
+        self.fms: FmSettings = settings.fm or FmSettings()
+        self.kind = "complex" if meta.mode == "iq" else "real"
+        self.fs = meta.fs_hz
+        self.k = meta.clock_factor
+        self._carrier: _Carrier | None = None
+        self._demod: dfm.FmDemodulator | None = None
+        self._post_sos = None
+        self._post_zi = None
+        self.post_filter = "none"
+        self._gates: list[_GatePhase] = []
+        self._dev_figs: list[dfm.DeviationFigures] = []
+        self._hist = dfm.DeviationHistogram(bin_hz=1.0)
+        self._power: dfm.ModulationPowerMeter | None = None
+        self._spec: dspec.SpectrumAverager | None = None
+        self._qualities: list = []
+        self._tones: list[dt.ToneEstimate] = []
+        self._hold = 0.0
+        self._last_baseband: np.ndarray | None = None
+        self._last_offset_hz = 0.0
+        self._last_dev = np.zeros(0)
+        self._run_t0 = 0.0
+        self._z_count = 0
+        self._settle = 0
+        self._cnrs: list[float] = []
+        self._iq_healths: list = []
+        self._levels = _levels()
+        self.no_tone_gates = 0
+        self._notes: list[str] = []
+        self._restarted = False
+
+    # -- set-up ------------------------------------------------------------------------
+    def _start(self, x: np.ndarray) -> None:
+        fms = self.fms
+        centroid, width, _ = find_carrier(x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz)
+        if fms.if_bandwidth_hz is not None:
+            bw = fms.if_bandwidth_hz
+        else:
+            # the cluster's width plus margin for drift and the skirts
+            bw = max(MIN_IF_BANDWIDTH_HZ, 1.3 * width + 100.0)
+        if self.kind == "real":
+            # keep the IF band inside (0, fs/2) with room for the filter's transition
+            room = min(centroid, self.fs / 2 - centroid)
+            if room <= 0:
+                raise InputError(f"carrier at {centroid:.1f} Hz is outside the band")
+            if fms.if_bandwidth_hz is None:
+                bw = min(bw, 2.0 * room * 0.8)
+            elif bw / 2 >= room:
+                raise InputError(
+                    f"--if-bandwidth {bw:g} Hz does not fit around the carrier at "
+                    f"{centroid:.1f} Hz between 0 Hz and {self.fs / 2:g} Hz"
+                )
+        else:
+            bw = min(bw, 0.8 * self.fs)
+        try:
+            self._demod = dfm.FmDemodulator(self.fs, centroid, bw, kind=self.kind)
+        except ValueError as exc:
+            raise InputError(f"{self.meta.source}: cannot demodulate here: {exc}") from None
+        self._carrier = _Carrier(centroid, bw)
+        fs_out = self._demod.fs_out_hz
+        post = fms.post_filter
+        if post is None:
+            post = "20-15k" if (self.kind == "complex" and fs_out > 2.2 * 15000) else "300-3000"
+        if post == "300-3000" and fs_out <= 2 * 3000 * 1.05:
+            post = "none"
+            self._notes.append(
+                "post-demodulation filter 300-3000 Hz needs a wider IF bandwidth; none used"
+            )
+        if post == "20-15k" and fs_out <= 2 * 15000 * 1.05:
+            raise InputError(
+                f"--post-filter 20-15k needs an output rate above 31.5 kHz; the IF bandwidth "
+                f"{bw:g} Hz gives {fs_out:g} Hz (raise --if-bandwidth)"
+            )
+        self.post_filter = post
+        self._post_sos = self._post_chain(post, fms.deemphasis, fs_out)
+        self._power = dfm.ModulationPowerMeter(fs_out)
+        nfft = 1 << max(8, min(14, int(math.log2(max(256, fs_out / 4.0)))))
+        self._spec = dspec.SpectrumAverager(fs_out, nfft, kind="complex")
+
+    @staticmethod
+    def _post_chain(post: str, deemph: str, fs_out: float):
+        from dsp import filters
+
+        parts = []
+        sos = filters.filter_sos(post, fs_out) if post != "none" else None
+        if sos is not None:
+            parts.append(sos)
+        tau = DEEMPHASIS[deemph]
+        if tau is not None:
+            parts.append(filters.emphasis_sos(tau, fs_out))
+        return np.vstack(parts) if parts else None
+
+    # -- per gate ----------------------------------------------------------------------
+    def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool):
+        from monitor.engine import Reading
+
+        lvl = self._levels.add(x)
+        if self._demod is None:
+            self._start(x)
+            self._restart_run(t_s)
+        elif not contiguous:
+            self._demod.reset()
+            self._restart_run(t_s)
+        if self.kind == "complex":
+            self._iq_healths.append(_iq_health(x))
+            if self.fms.iq_correct:
+                x = _iq_correct(x, self._iq_healths[-1])
+        inst, z = self._demod.process_baseband(x)
+        demod = self._demod
+        if z.shape[0] < 32:
+            self.no_tone_gates += 1
+            return Reading(
+                t_s=t_s, gate_s=x.shape[0] / self.fs, frequency_hz=None, uncertainty_hz=None,
+                amplitude_dbfs=None, tone_snr_db=None, contiguous=contiguous,
+                overflow=overflow, **lvl,
+            )  # fmt: skip
+        fs_out = demod.fs_out_hz
+        offset, phase, t_c, s_f, s_p, cnr = _phase_line(z, fs_out)
+        cnr_db = 10 * math.log10(cnr) if cnr > 0 else -math.inf
+        self._cnrs.append(cnr)
+        carrier = self._carrier.nco_hz + offset
+        # Baseband samples of one demodulator run are consecutive, so their count fixes
+        # each gate's time up to a constant, which is all the phase join needs; the join
+        # follows the baseband phase, i.e. the offset from the mixer.
+        t_ref = self._run_t0 + self._z_count / fs_out + t_c
+        self._z_count += z.shape[0]
+        self._gates.append(_GatePhase(t_ref, offset, s_f, phase, s_p, contiguous and not overflow))
+        self._spec.update(z)
+        self._last_baseband = z
+        self._last_offset_hz = offset
+        dev = inst - offset
+        dev_f = self._post(dev)
+        if self._settle:
+            cut = min(self._settle, dev_f.shape[0] // 2)
+            dev_f = dev_f[cut:]
+            self._settle -= cut
+        self._last_dev = dev_f
+        figs = dfm.deviation_figures(dev_f)
+        self._dev_figs.append(figs)
+        self._hist.update(dev_f)
+        self._power.update(dev_f)
+        self._hold = max(self._hold, figs.peak_pos_hz, -figs.peak_neg_hz)
+        tone = None
+        qual = None
+        if cnr_db >= CNR_MIN_DB and dev_f.shape[0] >= 64:
+            try:
+                tone = dt.estimate_tone(dev_f, fs_out, check_finite=False)
+            except ValueError:
+                tone = None
+            if tone is not None and tone.gate_snr_db >= 20.0 and tone.amplitude > 0.5:
+                self._tones.append(tone)
+                if 0 < tone.frequency_hz < fs_out / 2:
+                    qual = dq.measure_quality(dev_f, fs_out, fundamental_hz=tone.frequency_hz)
+                    self._qualities.append(qual)
+            else:
+                tone = None
+        if tone is None:
+            self.no_tone_gates += 1
+        k = self.k
+        rf = rf_from_carrier(self.meta, carrier * k)
+        n_h = max(1, self.meta.harmonic)
+        mod_index = tone.amplitude / tone.frequency_hz if tone is not None else None
+        return Reading(
+            t_s=t_s,
+            gate_s=x.shape[0] / self.fs,
+            frequency_hz=(rf / n_h if rf is not None else carrier * k),
+            uncertainty_hz=s_f * k / (n_h if rf is not None else 1),
+            amplitude_dbfs=None,
+            tone_snr_db=None,
+            snr_db=None if qual is None else qual.snr_db,
+            sinad_db=None if qual is None else qual.sinad_db,
+            thd_percent=None if qual is None else qual.thd_percent,
+            thd_n_percent=None if qual is None else qual.thd_n_percent,
+            carrier_hz=carrier * k,
+            carrier_uncertainty_hz=s_f * k,
+            rf_hz=rf,
+            fundamental_hz=None if rf is None else rf / n_h,
+            deviation_peak_pos_hz=figs.peak_pos_hz * k,
+            deviation_peak_neg_hz=figs.peak_neg_hz * k,
+            deviation_peak_avg_hz=figs.peak_avg_hz * k,
+            deviation_rms_hz=figs.rms_hz * k,
+            deviation_hold_hz=self._hold * k,
+            mod_tone_hz=None if tone is None else tone.frequency_hz * k,
+            mod_index=mod_index,
+            cnr_db=cnr_db,
+            contiguous=contiguous,
+            overflow=overflow,
+            **lvl,
+        )
+
+    def _restart_run(self, t_s: float) -> None:
+        """A new demodulator run: forget filter state, let the filters settle again."""
+        self._post_zi = None
+        self._run_t0, self._z_count = t_s, 0
+        fs_out = self._demod.fs_out_hz
+        tau = DEEMPHASIS[self.fms.deemphasis] or 0.0
+        self._settle = int(math.ceil((SETTLE_S[self.post_filter] + 8 * tau) * fs_out))
+
+    def _post(self, dev: np.ndarray) -> np.ndarray:
+        if self._post_sos is None:
+            return dev
+        from scipy.signal import sosfilt
+
+        if self._post_zi is None:
+            self._post_zi = np.zeros((self._post_sos.shape[0], 2))
+        y, self._post_zi = sosfilt(self._post_sos, dev, zi=self._post_zi)
+        return y
+
+    # -- views -------------------------------------------------------------------------
+    def view(self, x: np.ndarray, r):
+        from monitor.engine import GateView, spectrum_view, waveform_view
+
+        if self._last_baseband is not None and self._demod is not None:
+            fs_out = self._demod.fs_out_hz
+            freqs, db = spectrum_view(self._last_baseband, fs_out)
+            base = self._carrier.nco_hz
+            freqs = freqs + base
+            markers: tuple[float, ...] = (base + self._last_offset_hz,)
+            if r.mod_tone_hz:
+                fm_ = r.mod_tone_hz / self.k
+                kmax = max(1, min(8, int((r.deviation_peak_avg_hz or 0) / fm_) + 2))
+                markers = markers + tuple(
+                    base + self._last_offset_hz + j * fm_ for j in range(-kmax, kmax + 1) if j
+                )
+            wt, wy = waveform_view(self._last_dev, fs_out)
+            return GateView(r.t_s, freqs, db, markers, None, wt, wy, "Hz")
+        freqs, db = spectrum_view(x, self.fs)
+        wt, wy = waveform_view(x, self.fs)
+        return GateView(r.t_s, freqs, db, (), None, wt, wy, "FS")
+
+    # -- summary -----------------------------------------------------------------------
+    def tone_summary(self):
+        from monitor.engine import ToneSummary
+
+        if not self._gates:
+            return ToneSummary(None, None, None, None, None, 0, None)
+        comb = self._combine()
+        drift = None
+        if len(self._gates) >= 3:
+            t = np.array([g.t_ref_s for g in self._gates])
+            f = np.array([g.f_hz for g in self._gates]) * self.k
+            drift = float(np.polyfit(t, f, 1)[0])
+        return ToneSummary(
+            frequency_hz=(self._carrier.nco_hz + comb.frequency_hz) * self.k,
+            uncertainty_hz=comb.uncertainty_hz * self.k,
+            amplitude_dbfs=self._levels.carrier_dbfs(),
+            method=comb.method,
+            birge_ratio=comb.birge_ratio,
+            n_gates=comb.n_gates,
+            drift_hz_per_s=drift,
+        )
+
+    def _combine(self) -> dt.GateCombination:
+        g = self._gates
+        return dt.combine_gates(
+            [x.t_ref_s for x in g],
+            [x.f_hz for x in g],
+            [x.f_sigma_hz for x in g],
+            [x.phase for x in g],
+            [x.phase_sigma for x in g],
+            contiguous=[x.contiguous for x in g],
+        )
+
+    def quality_summary(self):
+        from monitor.engine import QualitySummary
+
+        if not self._qualities:
+            return QualitySummary(None, None, None, None, None, None, None, None, self.post_filter)
+        q = dq.combine_quality(self._qualities)
+        return QualitySummary(
+            q.snr_db, q.sinad_db, q.thd_percent, q.thd_n_percent, q.enob_bits, q.sfdr_db,
+            None, None, self.post_filter,
+        )  # fmt: skip
+
+    def fm_summary(self) -> FmSummary | None:
+        if not self._gates or not self._dev_figs:
+            return None
+        k = self.k
+        comb = self._combine()
+        carrier = (self._carrier.nco_hz + comb.frequency_hz) * k
+        carrier_u = comb.uncertainty_hz * k
+        meta = self.meta
+        rf = rf_from_carrier(meta, carrier)
+        n_h = max(1, meta.harmonic)
+        figs = self._dev_figs
+        peak_pos = max(f.peak_pos_hz for f in figs) * k
+        peak_neg = min(f.peak_neg_hz for f in figs) * k
+        ms = sum(f.rms_hz**2 * f.n_samples for f in figs) / sum(f.n_samples for f in figs)
+        rms = math.sqrt(ms) * k
+        tone_hz = tone_u = tone_peak = mod_index = None
+        if self._tones:
+            ws = np.array([1.0 / t.uncertainty_hz**2 for t in self._tones])
+            fr = np.array([t.frequency_hz for t in self._tones])
+            tone_hz = float(np.sum(ws * fr) / ws.sum()) * k
+            tone_u = float(1 / math.sqrt(ws.sum())) * k
+            tone_peak = float(np.mean([t.amplitude for t in self._tones])) * k
+            mod_index = tone_peak / tone_hz
+        peak_avg = (peak_pos - peak_neg) / 2.0
+        dev = DeviationSummary(
+            peak_pos_hz=peak_pos,
+            peak_neg_hz=peak_neg,
+            peak_avg_hz=peak_avg,
+            rms_hz=rms,
+            rms_sqrt2_hz=rms * math.sqrt(2.0),
+            tone_peak_hz=tone_peak,
+            hold_hz=self._hold * k,
+            exceeded_10pct_hz=self._hist.exceeded_hz(0.10) * k,
+            exceeded_1pct_hz=self._hist.exceeded_hz(0.01) * k,
+            exceeded_0p1pct_hz=self._hist.exceeded_hz(0.001) * k,
+            histogram=self._hist.to_dict(),
+        )
+        carson = None
+        if tone_hz is not None:
+            carson = dfm.carson_bandwidth_hz(tone_peak if tone_peak else peak_avg, tone_hz)
+        spec = self._spec.result() if self._spec is not None and self._spec.averages else None
+        obw = obw_lo = obw_hi = bw26 = None
+        if spec is not None:
+            lo, hi, bw = dspec.occupied_bandwidth_hz(spec, 0.99)
+            obw, obw_lo, obw_hi = bw * k, lo + self._carrier.nco_hz, hi + self._carrier.nco_hz
+            bw26 = dspec.xdb_bandwidth_hz(spec, 26.0)[2] * k
+        bessel = None
+        if tone_hz is not None and self._last_baseband is not None:
+            bessel = self._bessel(tone_hz / k)
+        mp = self._power.result()
+        quality = self.quality_summary()
+        cnr = float(np.median(self._cnrs)) if self._cnrs else None
+        return FmSummary(
+            carrier_hz=carrier,
+            carrier_uncertainty_hz=carrier_u,
+            carrier_method=comb.method,
+            rf_hz=rf,
+            rf_uncertainty_hz=None if rf is None else carrier_u,
+            fundamental_hz=None if rf is None else rf / n_h,
+            fundamental_deviation_hz=(tone_peak if tone_peak is not None else peak_avg) / n_h,
+            dial_hz=meta.dial_hz if meta.mode == "beat" else (meta.center_hz or meta.dial_hz),
+            sideband=meta.sideband if meta.mode == "beat" else None,
+            harmonic=n_h,
+            if_bandwidth_hz=self._carrier.bandwidth_hz,
+            post_filter=self.post_filter,
+            deemphasis=self.fms.deemphasis,
+            deviation=dev,
+            mod_tone_hz=tone_hz,
+            mod_tone_uncertainty_hz=tone_u,
+            mod_index=mod_index,
+            bessel_mod_index=None if bessel is None else bessel.mod_index,
+            bessel=bessel,
+            carson_bw_hz=carson,
+            occupied_bw_hz=obw,
+            occupied_low_hz=obw_lo,
+            occupied_high_hz=obw_hi,
+            bw_26db_hz=bw26,
+            mod_power_dbr=mp.power_dbr,
+            mod_power_window_s=mp.window_s,
+            mod_power_whole_record=mp.whole_record,
+            cnr_db=None if cnr is None else 10 * math.log10(cnr),
+            demod_snr_db=quality.snr_db,
+            demod_sinad_db=quality.sinad_db,
+            demod_thd_percent=quality.thd_percent,
+        )
+
+    def _bessel(self, fm_hz: float) -> BesselSummary | None:
+        z = self._last_baseband
+        fs_out = self._demod.fs_out_hz
+        beta_guess = (
+            (self._tones[-1].amplitude / self._tones[-1].frequency_hz) if self._tones else 1
+        )
+        kmax = int(min(40, max(3, math.ceil(beta_guess + 4))))
+        # all lines must lie inside the baseband's band
+        while kmax > 1 and abs(self._last_offset_hz) + kmax * fm_hz >= 0.45 * fs_out:
+            kmax -= 1
+        try:
+            amps = dfm.fm_line_amplitudes(z, fs_out, self._last_offset_hz, fm_hz, kmax)
+            fit = dfm.fit_bessel(amps, mod_tone_hz=fm_hz)
+        except ValueError:
+            return None
+        lines = tuple(
+            float(20 * math.log10(a / fit.scale)) if a > 0 and fit.scale > 0 else -math.inf
+            for a in amps
+        )
+        return BesselSummary(
+            mod_index=fit.mod_index,
+            residual=fit.residual,
+            carrier_depth_db=fit.carrier_depth_db,
+            nearest_carrier_null=fit.nearest_carrier_null,
+            nearest_null_mod_index=fit.nearest_null_mod_index,
+            lines_db=lines,
+        )
+
+    def iq_summary(self) -> IqSummary | None:
+        if not self._iq_healths:
+            return None
+        hs = self._iq_healths
+        return IqSummary(
+            dc_i=float(np.mean([h.dc_i for h in hs])),
+            dc_q=float(np.mean([h.dc_q for h in hs])),
+            gain_imbalance_db=float(np.median([h.gain_imbalance_db for h in hs])),
+            phase_imbalance_deg=float(np.median([h.phase_imbalance_deg for h in hs])),
+            image_rejection_db=float(np.median([h.image_rejection_db for h in hs])),
+            corrected=self.fms.iq_correct,
+        )
+
+    def summary_warnings(self) -> list[str]:
+        out = list(self._notes)
+        s = self.fm_summary()
+        if s is None:
+            return out
+        if s.carson_bw_hz is not None and s.carson_bw_hz > s.if_bandwidth_hz * 1.02:
+            out.append(
+                f"Carson bandwidth {s.carson_bw_hz:.0f} Hz exceeds the IF bandwidth "
+                f"{s.if_bandwidth_hz:.0f} Hz: deviation may read low (raise --if-bandwidth)"
+            )
+        if s.mod_tone_hz is not None and s.mod_tone_hz > s.if_bandwidth_hz / 2:
+            out.append(f"modulating tone {s.mod_tone_hz:.0f} Hz is above half the IF bandwidth")
+        if s.cnr_db is not None and s.cnr_db < 10:
+            out.append(
+                f"carrier-to-noise ratio {s.cnr_db:.1f} dB: the discriminator output is noisy "
+                "and peak deviation reads high"
+            )
+        if not self._tones:
+            out.append("no modulating tone found: modulation index and Bessel fit not given")
+        return out
+
+    def extra(self) -> dict:
+        d: dict = {}
+        s = self.fm_summary()
+        if s is not None:
+            d["fm"] = asdict(s)
+        iq = self.iq_summary()
+        if iq is not None:
+            d["iq"] = asdict(iq)
+        return d
+
+
+class _levels:
+    """Level accounting shared by the FM modes (real or complex samples)."""
+
+    def __init__(self):
+        from monitor.engine import _LevelAccumulator
+
+        self.acc = _LevelAccumulator()
+        self.sum_abs2 = 0.0
+        self.n = 0
+
+    def add(self, x: np.ndarray) -> dict:
+        if np.iscomplexobj(x):
+            mag = np.abs(x)
+            lvl = dq.measure_level(np.concatenate([x.real, x.imag]))
+            self.acc.add(np.concatenate([x.real, x.imag]), lvl.clipped_samples)
+            self.sum_abs2 += float(np.dot(mag, mag))
+        else:
+            lvl = dq.measure_level(x)
+            self.acc.add(x, lvl.clipped_samples)
+            self.sum_abs2 += float(np.dot(x, x))
+        self.n += x.shape[0]
+        return {
+            "rms_dbfs": lvl.rms_dbfs,
+            "peak_dbfs": lvl.peak_dbfs,
+            "clipped_samples": lvl.clipped_samples,
+        }
+
+    def summary(self):
+        return self.acc.summary()
+
+    def carrier_dbfs(self) -> float:
+        ms = self.sum_abs2 / max(1, self.n)
+        return 10 * math.log10(ms) if ms > 0 else -math.inf
+
+
+def _iq_health(z):
+    from dsp import iq
+
+    return iq.iq_health(z)
+
+
+def _iq_correct(z, health):
+    from dsp import iq
+
+    return iq.iq_correct(z, health)
+
+
+def make_processor(meta: StreamMeta, settings) -> FmProcessor:
+    if meta.mode not in ("beat", "iq"):
+        raise ValueError(f"mode={meta.mode!r} is not an FM mode")
+    return FmProcessor(meta, settings)
+
+
+__all__ = ["FmProcessor", "FmSettings", "FmSummary", "IqSummary", "find_carrier", "make_processor"]
