@@ -301,6 +301,8 @@ class StabilityResult:
     check : ReadingCheck
     drift : DriftFit
         Fitted over the whole record.
+    span_drift : DriftFit
+        Fitted over the readings the Allan family uses (`span_s`).
     warmup : Warmup
     span_s : (float, float)
         Reading times the Allan family was computed over.
@@ -316,6 +318,7 @@ class StabilityResult:
 
     check: ReadingCheck
     drift: DriftFit
+    span_drift: DriftFit
     warmup: Warmup
     span_s: tuple[float, float]
     nominal_hz: float
@@ -1034,8 +1037,8 @@ def noise_hint(
             pred = abs(drift_per_s) * np.asarray(adev.taus_s) / math.sqrt(2)
             ratio = float(np.median(np.asarray(adev.values) / pred))
             text += (
-                f"; the fitted drift predicts D*tau/sqrt(2) at {ratio:.2f} of the measured "
-                "curve" + (" (drift explains it)" if 0.7 < ratio < 1.4 else "")
+                f"; the measured curve is {ratio:.2f} times the D*tau/sqrt(2) of the fitted "
+                "linear drift" + (" (drift explains it)" if 0.7 < ratio < 1.4 else "")
             )
             if not 0.7 < ratio < 1.4:
                 text += " (random-run FM or changing drift also give slope +1)"
@@ -1089,8 +1092,8 @@ def analyze_stability(
     factors : sequence of int, optional
         Averaging factors (tau = m*tau0). Default: octaves.
     remove_drift : bool, default False
-        Subtract the linear drift fit before the Allan family (drift then no longer
-        dominates long taus; the drift figures are still reported).
+        Subtract the linear drift fitted over the span before the Allan family (drift
+        then no longer dominates long taus; the drift figures are still reported).
     confidence : float, default 0.683
         Two-sided probability of the confidence intervals.
     breaks_before : array_like of bool, optional
@@ -1152,10 +1155,12 @@ def analyze_stability(
     sel = (tu >= lo) & (tu <= hi)
     if sel.sum() < 2:
         raise ValueError(f"span {lo:g}..{hi:g} s holds {int(sel.sum())} readings, need 2")
+    idx = np.nonzero(sel)[0]
+    # The drift over the part the Allan family sees is what shapes its long taus.
+    span_drift = fit_drift(tu[sel], fu[sel], nominal_hz=nominal_hz) if sel.sum() >= 3 else drift
     y = fractional_frequency(fu, nominal_hz)
     if remove_drift:
-        y = y - drift.hz_per_s / nominal_hz * (tu - 0.5 * (tu[0] + tu[-1]))
-    idx = np.nonzero(sel)[0]
+        y = y - span_drift.hz_per_s / nominal_hz * (tu - 0.5 * (tu[idx[0]] + tu[idx[-1]]))
     segs = []
     for a, b in check.segments:
         a2, b2 = max(a, idx[0]), min(b, idx[-1] + 1)
@@ -1167,11 +1172,12 @@ def analyze_stability(
     hint = noise_hint(
         curves["oadev"],
         curves["mdev"],
-        drift_per_s=None if remove_drift else drift.hz_per_s / nominal_hz,
+        drift_per_s=None if remove_drift else span_drift.hz_per_s / nominal_hz,
     )
     return StabilityResult(
         check=check,
         drift=drift,
+        span_drift=span_drift,
         warmup=warm,
         span_s=(float(tu[idx[0]]), float(tu[idx[-1]])),
         nominal_hz=float(nominal_hz),

@@ -290,6 +290,7 @@ def _result_dict(series, result) -> dict:
         "tau0_s": result.check.tau0_s,
         "span_s": list(result.span_s),
         "drift": asdict(result.drift),
+        "span_drift": asdict(result.span_drift),
         "warmup_s": result.warmup.warmup_s,
         "warmup": asdict(result.warmup),
         "adev": _curve_dict(result.adev),
@@ -402,6 +403,12 @@ def _print(doc: dict) -> None:
         f"{_g(d['quadratic_start_hz_per_s'], '.4g')} → "
         f"{_g(d['quadratic_end_hz_per_s'], '.4g', 'Hz/s')}",
     )
+    sd = doc["span_drift"]
+    if sd != d:
+        head.add_row(
+            "drift (Allan span)",
+            f"{_g(sd['hz_per_s'], '.4g', 'Hz/s')}, {_g(sd['ppm_per_min'], '.4g', 'ppm/min')}",
+        )
     head.add_row(
         "total excursion", f"{_g(d['excursion_hz'], '.4g', 'Hz')} ({_g(d['excursion_ppm'])} ppm)"
     )
