@@ -251,7 +251,8 @@ def run(args) -> int:
 
     if args.sigmf and args.mode != "iq":
         raise InputError(f"--sigmf needs --mode iq (not {args.mode!r})")
-    check_output_path(args.out)  # before the device is opened
+    if not args.sigmf:  # SigMF names its own files; the recorder checks those
+        check_output_path(args.out)  # before the device is opened
     source = source_from_args(args, duration_s=args.duration)
     interrupted = False
     recorder = None
