@@ -27,10 +27,14 @@ POST_FILTERS = ("none", "300-3000", "20-15k")
 # Post-demodulation output discarded after each (re)start while the filter settles
 # (about eight time constants of its lowest corner).
 SETTLE_S = {"none": 0.005, "300-3000": 0.03, "20-15k": 0.3}
+# Output rate each post-demodulation filter needs (2.2 x its upper edge).
+POST_MIN_RATE = {"300-3000": 6600.0, "20-15k": 33000.0}
 DEEMPHASIS = {"none": None, "50us": 50e-6, "75us": 75e-6}
 MIN_IF_BANDWIDTH_HZ = 200.0
 # The carrier cluster must stand this far above the spectral floor (dB) to count.
 CARRIER_MIN_SNR_DB = 15.0
+# An IF band holding less of the signal's power than this gives no trustworthy deviation.
+IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
 CNR_MIN_DB = 3.0
 
@@ -217,6 +221,27 @@ def find_carrier(
     return centre, width, snr_db
 
 
+def power_fraction_within(x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, hi_hz: float):
+    """Share of the signal's power (above the noise floor) between lo_hz and hi_hz."""
+    n = x.shape[0]
+    w = np.hanning(n)
+    if kind == "complex":
+        spec = np.fft.fftshift(np.fft.fft((x - x.mean()) * w))
+        freqs = np.fft.fftshift(np.fft.fftfreq(n, 1.0 / fs_hz))
+    else:
+        spec = np.fft.rfft((x - x.mean()) * w)
+        freqs = np.fft.rfftfreq(n, 1.0 / fs_hz)
+    p = spec.real**2 + spec.imag**2
+    p = np.maximum(p - np.median(p), 0.0)  # the noise floor is not signal
+    if kind == "real":
+        p[freqs < 20.0] = 0.0
+    total = float(p.sum())
+    if total <= 0:
+        return 1.0
+    sel = (freqs >= lo_hz) & (freqs <= hi_hz)
+    return float(p[sel].sum()) / total
+
+
 def _phase_line(z: np.ndarray, fs_hz: float):
     """Least-squares line through the unwrapped baseband phase.
 
@@ -300,25 +325,38 @@ class FmProcessor:
                 )
         else:
             bw = min(bw, 0.8 * self.fs)
+        inside = power_fraction_within(x, self.fs, self.kind, centroid - bw / 2, centroid + bw / 2)
+        if inside < IF_POWER_MIN_FRACTION:
+            raise InputError(
+                f"{self.meta.source}: the IF bandwidth {bw:g} Hz around the carrier at "
+                f"{centroid:.1f} Hz holds only {100 * inside:.0f}% of the signal's power; "
+                "widen --if-bandwidth (deviation would read low)"
+            )
+        if inside < 0.99:
+            self._notes.append(
+                f"the IF bandwidth {bw:.0f} Hz holds {100 * inside:.1f}% of the signal's power"
+            )
+        post = fms.post_filter
+        if post is None:
+            post = (
+                "20-15k"
+                if (self.kind == "complex" and self.fs >= POST_MIN_RATE["20-15k"])
+                else ("300-3000")
+            )
+        need = POST_MIN_RATE.get(post)
+        if need is not None and self.fs < need:
+            raise InputError(
+                f"--post-filter {post} needs a sample rate of at least {need:g} Hz "
+                f"(the recording has {self.fs:g} Hz)"
+            )
         try:
-            self._demod = dfm.FmDemodulator(self.fs, centroid, bw, kind=self.kind)
+            self._demod = dfm.FmDemodulator(
+                self.fs, centroid, bw, kind=self.kind, min_fs_out_hz=need
+            )
         except ValueError as exc:
             raise InputError(f"{self.meta.source}: cannot demodulate here: {exc}") from None
         self._carrier = _Carrier(centroid, bw)
         fs_out = self._demod.fs_out_hz
-        post = fms.post_filter
-        if post is None:
-            post = "20-15k" if (self.kind == "complex" and fs_out > 2.2 * 15000) else "300-3000"
-        if post == "300-3000" and fs_out <= 2 * 3000 * 1.05:
-            post = "none"
-            self._notes.append(
-                "post-demodulation filter 300-3000 Hz needs a wider IF bandwidth; none used"
-            )
-        if post == "20-15k" and fs_out <= 2 * 15000 * 1.05:
-            raise InputError(
-                f"--post-filter 20-15k needs an output rate above 31.5 kHz; the IF bandwidth "
-                f"{bw:g} Hz gives {fs_out:g} Hz (raise --if-bandwidth)"
-            )
         self.post_filter = post
         self._post_sos = self._post_chain(post, fms.deemphasis, fs_out)
         self._power = dfm.ModulationPowerMeter(fs_out)

@@ -136,6 +136,11 @@ class SoundFileSource(_BlockReader):
         self.mix = mix
         self.swap_iq = swap_iq
         self.block_frames = int(block_frames)
+        if channels == 2 and mode != "iq" and _looks_like_iq(self._f):
+            self.warnings.append(
+                "the two channels look like I/Q (equal level, 90 degrees apart): "
+                "use --mode iq to read them as one complex signal"
+            )
         extra = {"format": info.format, "subtype": info.subtype}
         self.meta = StreamMeta(
             source=self.path,
@@ -310,6 +315,28 @@ class ArraySource(_BlockReader):
     def _raw_blocks(self) -> Iterator[np.ndarray]:
         for i in range(0, self._x.shape[0], self.block_frames):
             yield self._x[i : i + self.block_frames]
+
+
+def _looks_like_iq(f) -> bool:
+    """True when the first second of a stereo file behaves like I/Q: both channels carry
+    a signal of equal level, uncorrelated with each other, and Q is (close to) the Hilbert
+    transform of I."""
+    from scipy.signal import hilbert
+
+    f.seek(0)
+    data = f.read(min(int(f.samplerate), 1 << 17), dtype="float64", always_2d=True)
+    f.seek(0)
+    if data.shape[0] < 256:
+        return False
+    i, q = data[:, 0] - data[:, 0].mean(), data[:, 1] - data[:, 1].mean()
+    pi, pq = float(np.dot(i, i)), float(np.dot(q, q))
+    if pi <= 0 or pq <= 0 or not 0.5 < pi / pq < 2.0:
+        return False
+    if abs(float(np.dot(i, q))) > 0.3 * math.sqrt(pi * pq):
+        return False
+    h = np.imag(hilbert(i))
+    c = abs(float(np.dot(h, q))) / math.sqrt(float(np.dot(h, h)) * pq)
+    return c > 0.9
 
 
 def _check_exists(path: str) -> None:
