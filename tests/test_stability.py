@@ -333,6 +333,10 @@ class TestAnalyzeStability:
         assert r_set.adev.values[-1] < r_all.adev.values[-1]
         r_span = analyze_stability(t, f, select="span", span_s=(1000, 2000), **kw)
         assert r_span.span_s == (1000.0, 2000.0)
+        # drift of the span: scipy.stats.linregress on the readings in it
+        sel = (t >= 1000) & (t <= 2000)
+        ref = stats.linregress(t[sel], f[sel]).slope
+        assert r_span.span_drift.hz_per_s == pytest.approx(ref, rel=1e-9)
         assert r_span.check.count == 3600
 
     def test_remove_drift(self, rng):

@@ -501,6 +501,8 @@ def _plot(path: str, dut, ref) -> None:
     ax1.plot(t, quad, "--", label="quadratic fit")
     if res.warmup.settled_at_t_s is not None:
         ax1.axvline(res.warmup.settled_at_t_s, color="grey", ls=":", label="warm-up end")
+    if res.span_s != (float(t[ok][0]), float(t[ok][-1])):
+        ax1.axvspan(*res.span_s, color="0.9", zorder=0, label="Allan span")
     ax1.set_xlabel("t (s)")
     ax1.set_ylabel(f"frequency - {res.nominal_hz:.10g} Hz (Hz)")
     ax1.set_title(f"{series.source}")
@@ -541,7 +543,10 @@ def _plot(path: str, dut, ref) -> None:
     ax2.set_yscale("log")
     ax2.set_xlabel("τ (s)")
     ax2.set_ylabel("σ_y(τ)")
-    ax2.set_title(f"Allan family, gate time {res.check.tau0_s:g} s")
+    ax2.set_title(
+        f"Allan family, gate time {res.check.tau0_s:g} s, "
+        f"t = {res.span_s[0]:g} to {res.span_s[1]:g} s"
+    )
     ax2.legend(fontsize="small")
     ax2.grid(True, which="both", alpha=0.3)
     fig.tight_layout()
