@@ -42,6 +42,10 @@ class AnalysisSettings:
     mains: str = "auto"
     n_harmonics: int = 10
     fm: object | None = None  # monitor.fm_engine.FmSettings for beat / iq
+    # audio mode: Hz of deviation per unit (full scale) of the receiver's audio after its
+    # de-emphasis is undone (from `calibrate deviation`), and that de-emphasis
+    deviation_hz_per_unit: float | None = None
+    receiver_deemphasis: str = "none"
 
     def __post_init__(self):
         if not (GATE_MIN_S <= self.gate_s <= GATE_MAX_S):
@@ -278,6 +282,7 @@ class AudioProcessor:
                 # start from rest: the first gate includes the filter's settling
                 self._zi = np.zeros((self._sos.shape[0], 2))
         self.no_tone_gates = 0
+        self._dev = _AudioDeviation(settings, self.fs) if settings.deviation_hz_per_unit else None
 
     def filtered(self, x: np.ndarray) -> np.ndarray:
         """Stream the measurement filter (state kept across gates)."""
@@ -332,6 +337,9 @@ class AudioProcessor:
                 self._track_hz = None
         if freq is None:
             self.no_tone_gates += 1
+        dev = {}
+        if self._dev is not None:
+            dev = self._dev.process(x, None if freq is None else freq / k, k)
         return Reading(
             t_s=t_s,
             gate_s=gate_s,
@@ -351,7 +359,20 @@ class AudioProcessor:
             hum_db=None if qual is None else qual.hum_db,
             contiguous=contiguous,
             overflow=overflow,
+            **dev,
         )
+
+    def extra(self) -> dict:
+        """The deviation section: measured when calibrated, else said to be missing."""
+        if self._dev is None:
+            return {
+                "deviation": {
+                    "calibrated": False,
+                    "note": "not calibrated: audio mode gives deviation only with a bench "
+                    "profile from `swingmeter calibrate deviation`",
+                }
+            }
+        return {"deviation": self._dev.summary(self.meta.clock_factor)}
 
     def view(self, x: np.ndarray, r: Reading) -> GateView:
         freqs, db = spectrum_view(x, self.fs)
@@ -405,6 +426,80 @@ class AudioProcessor:
             hum_db=q.hum_db,
             filter=self.settings.filter,
         )
+
+
+class _AudioDeviation:
+    """Deviation from a receiver's audio through a calibrated factor.
+
+    The receiver's de-emphasis is undone first (pre-emphasis, `dsp.filters.emphasis_sos`
+    with inverse=True), so the audio is proportional to the instantaneous deviation, then
+    scaled by the bench profile's Hz-per-unit factor.
+    """
+
+    def __init__(self, settings: AnalysisSettings, fs: float):
+        from dsp import filters
+        from dsp import fm as dfm
+
+        self.factor = float(settings.deviation_hz_per_unit)
+        self.deemphasis = settings.receiver_deemphasis
+        self.fs = fs
+        tau = {"none": None, "50us": 50e-6, "75us": 75e-6}[settings.receiver_deemphasis]
+        self.sos = None if tau is None else filters.emphasis_sos(tau, fs, inverse=True)
+        self.zi = None if self.sos is None else np.zeros((self.sos.shape[0], 2))
+        self._dfm = dfm
+        self.figs: list = []
+        self.hold = 0.0
+        self.tone_peaks: list[tuple[float, float]] = []
+
+    def process(self, x: np.ndarray, tone_hz: float | None, k: float) -> dict:
+        from scipy.signal import sosfilt
+
+        y = x - x.mean()
+        if self.sos is not None:
+            y, self.zi = sosfilt(self.sos, y, zi=self.zi)
+        dev = self.factor * y
+        f = self._dfm.deviation_figures(dev)
+        self.figs.append(f)
+        self.hold = max(self.hold, f.peak_pos_hz, -f.peak_neg_hz)
+        out = {
+            "deviation_peak_pos_hz": f.peak_pos_hz * k,
+            "deviation_peak_neg_hz": f.peak_neg_hz * k,
+            "deviation_peak_avg_hz": f.peak_avg_hz * k,
+            "deviation_rms_hz": f.rms_hz * k,
+            "deviation_hold_hz": self.hold * k,
+        }
+        if tone_hz is not None and 0 < tone_hz < self.fs / 2:
+            est = dt.estimate_tone(dev, self.fs, start_hz=tone_hz, check_finite=False)
+            self.tone_peaks.append((est.amplitude, est.frequency_hz))
+            out["mod_tone_hz"] = est.frequency_hz * k
+            out["mod_index"] = est.amplitude / est.frequency_hz
+        return out
+
+    def summary(self, k: float) -> dict:
+        figs = self.figs
+        if not figs:
+            return {"calibrated": True, "factor_hz_per_unit": self.factor}
+        n = sum(f.n_samples for f in figs)
+        rms = math.sqrt(sum(f.rms_hz**2 * f.n_samples for f in figs) / n)
+        d = {
+            "calibrated": True,
+            "factor_hz_per_unit": self.factor,
+            "receiver_deemphasis": self.deemphasis,
+            "peak_pos_hz": max(f.peak_pos_hz for f in figs) * k,
+            "peak_neg_hz": min(f.peak_neg_hz for f in figs) * k,
+            "rms_hz": rms * k,
+            "rms_sqrt2_hz": rms * math.sqrt(2) * k,
+            "hold_hz": self.hold * k,
+            "tone_peak_hz": None,
+            "mod_tone_hz": None,
+            "mod_index": None,
+        }
+        d["peak_avg_hz"] = (d["peak_pos_hz"] - d["peak_neg_hz"]) / 2
+        if self.tone_peaks:
+            amp = float(np.mean([a for a, _ in self.tone_peaks]))
+            f0 = float(np.mean([f for _, f in self.tone_peaks]))
+            d.update(tone_peak_hz=amp * k, mod_tone_hz=f0 * k, mod_index=amp / f0)
+        return d
 
 
 def _mains_arg(mains: str):

@@ -66,11 +66,28 @@ def summary_table(summary: dict):
         t.add_row(
             "ENOB / SFDR", f"{_num(q['enob_bits'], '.2f')} bit / {_num(q['sfdr_db'], '.1f')} dB"
         )
-        # hum more than 80 dB below the tone is below anything a bench cares about
-        if q.get("hum_hz") and q.get("hum_db") is not None and q["hum_db"] > -80.0:
+        # hum more than 60 dB below the tone is below anything a bench cares about
+        if q.get("hum_hz") and q.get("hum_db") is not None and q["hum_db"] > -60.0:
             t.add_row("mains hum", f"{q['hum_hz']:g} Hz at {_num(q['hum_db'], '.1f')} dB re tone")
     for row in fm_rows(summary):
         t.add_row(*row)
+    dev = summary.get("deviation")
+    if isinstance(dev, dict):
+        if not dev.get("calibrated"):
+            t.add_row("deviation", "not calibrated (swingmeter calibrate deviation)")
+        elif dev.get("peak_pos_hz") is not None:
+            t.add_row(
+                "deviation",
+                f"peak+ {_num(dev['peak_pos_hz'], '.1f')}  peak- {_num(dev['peak_neg_hz'], '.1f')}"
+                f"  rms {_num(dev['rms_hz'], '.1f')} Hz  (calibrated audio, "
+                f"{dev['factor_hz_per_unit']:.6g} Hz/FS)",
+            )
+            if dev.get("tone_peak_hz") is not None:
+                t.add_row(
+                    "tone deviation",
+                    f"{dev['tone_peak_hz']:.2f} Hz peak at {dev['mod_tone_hz']:.2f} Hz, "
+                    f"modulation index {dev['mod_index']:.4f}",
+                )
     for w in summary.get("warnings", []):
         t.add_row("[yellow]warning[/yellow]", f"[yellow]{w}[/yellow]")
     return t

@@ -215,7 +215,16 @@ def settings_from_args(args, mode: str | None = None):
                 deemphasis=getattr(args, "deemphasis", "none") or "none",
                 iq_correct=bool(getattr(args, "iq_correct", False)),
             )
+        dev_factor, rx_deemph = None, "none"
+        if mode == "audio" and getattr(args, "profile", None):
+            from monitor import profiles
+
+            prof = profiles.load(args.profile)
+            dev_factor = prof.get("deviation_hz_per_unit")
+            rx_deemph = prof.get("deviation_deemphasis", "none")
         return AnalysisSettings(
+            deviation_hz_per_unit=dev_factor,
+            receiver_deemphasis=rx_deemph,
             fm=fm,
             mode=mode,
             gate_s=args.gate,

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 from pathlib import Path
 
 from monitor.errors import InputError
@@ -82,9 +83,35 @@ def run(args) -> int:
                     "recordings below are corrected by it (as `--clock-ppm` or a bench "
                     "profile would)."
                 )
+    dev_factor = None
+    for entry in index:
+        cal = entry.get("calibrate_deviation")
+        if cal:
+            from monitor.commands.calibrate_deviation import audio_tone, reference_deviation
+
+            f_audio, amp, _ = audio_tone(str(folder / entry["file"]), cal["deemphasis"])
+            _, dev, _ = reference_deviation(str(folder / cal["reference"]), cal["reference_mode"])
+            dev_factor = (dev / amp, cal["deemphasis"])
+            if not args.json:
+                con.rule("deviation calibration")
+                con.print(
+                    f"{cal['reference']} (beat note) shows {dev:.1f} Hz peak deviation of the "
+                    f"{f_audio:.0f} Hz tone; {entry['file']} (broadcast radio, "
+                    f"{cal['deemphasis']} de-emphasis undone) carries it at "
+                    f"{20 * math.log10(amp):.2f} dBFS: [bold]{dev / amp:.1f} Hz per unit of "
+                    "full scale[/bold] (as `swingmeter calibrate deviation` would save)."
+                )
     for entry in index:
         opts = dict(entry.get("options", {}))
-        settings = AnalysisSettings(mode=entry.get("mode", "audio"), **_settings_opts(opts))
+        extra_settings = {}
+        if entry.get("uses_deviation_calibration") and dev_factor is not None:
+            extra_settings = {
+                "deviation_hz_per_unit": dev_factor[0],
+                "receiver_deemphasis": dev_factor[1],
+            }
+        settings = AnalysisSettings(
+            mode=entry.get("mode", "audio"), **_settings_opts(opts), **extra_settings
+        )
         meta = {"clock_ppm": clock_ppm, **opts.get("meta", {})}
         analysis = analyze_file(str(folder / entry["file"]), settings=settings, meta=meta)
         d = analysis.summary.to_dict()
@@ -94,6 +121,8 @@ def run(args) -> int:
         if not args.json:
             con.rule(entry["file"])
             con.print(entry.get("description", ""))
+            if entry.get("command"):
+                con.print(f"[dim]$ {entry['command']}[/dim]")
             con.print(render.summary_table(output.clean(d)))
     if args.json:
         print(output.dumps(results))
@@ -101,4 +130,9 @@ def run(args) -> int:
 
 
 def _settings_opts(opts: dict) -> dict:
-    return {k: (tuple(v) if isinstance(v, list) else v) for k, v in opts.items() if k != "meta"}
+    from monitor.fm_engine import FmSettings
+
+    out = {k: (tuple(v) if isinstance(v, list) else v) for k, v in opts.items() if k != "meta"}
+    if "fm" in out:
+        out["fm"] = FmSettings(**out["fm"])
+    return out
