@@ -243,3 +243,70 @@ class TestBadInput:
         assert main(["analyze", str(p), "--json"]) == 0
         d = json.loads(capsys.readouterr().out)
         assert any("look like I/Q" in w for w in d["warnings"])
+
+
+def broadcast_audio(path, dev_hz, *, gain=0.4 / 3000.0, tau=50e-6, fs=48000, dur=2.0, seed=4):
+    """A receiver's audio of a 1 kHz tone at dev_hz with its de-emphasis, made with
+    scipy.signal.bilinear (not our filter code) and seeded hiss."""
+    from scipy.signal import bilinear, lfilter
+
+    t = np.arange(int(fs * dur)) / fs
+    b, a = bilinear([1.0], [tau, 1.0], fs)
+    x = lfilter(b, a, dev_hz * np.sin(2 * np.pi * 1000.0 * t)) * gain
+    x += 1e-4 * np.random.default_rng(seed).standard_normal(t.size)
+    sf.write(path, x, fs, subtype="PCM_24")
+    return path
+
+
+class TestAudioDeviation:
+    def test_not_calibrated(self, tmp_path, capsys):
+        p = broadcast_audio(tmp_path / "rx.wav", 3000.0)
+        assert main(["analyze", str(p), "--json", "--readings"]) == 0
+        d = json.loads(capsys.readouterr().out)
+        assert d["deviation"]["calibrated"] is False
+        assert "not calibrated" in d["deviation"]["note"]
+        assert not any(k.startswith("deviation_") for r in d["readings"] for k in r)
+        assert main(["analyze", str(p)]) == 0
+        assert "not calibrated" in capsys.readouterr().out
+
+    def test_pair_calibration_then_reading(self, ffmpeg, tmp_path, capsys):
+        # the same modulation (1 kHz at the first carrier null, 2404.83 Hz) as a beat note
+        # from ffmpeg and as a receiver's audio; then a new audio recording at 3 kHz
+        beat = beat_fm(ffmpeg, tmp_path / "beat.wav", carrier=9000.0, beta=J0_FIRST_ZERO,
+                       fm=1000.0)  # fmt: skip
+        rx = broadcast_audio(tmp_path / "rx.wav", 1000.0 * J0_FIRST_ZERO)
+        argv = [
+            "calibrate", "deviation", "--audio", str(rx), "--reference", str(beat),
+            "--reference-mode", "beat", "--deemphasis", "50us", "--profile", "rx1", "--json",
+        ]  # fmt: skip
+        assert main(argv) == 0
+        cal = json.loads(capsys.readouterr().out)
+        # the audio holds gain * dev (before de-emphasis): factor = 1 / gain = 7500 Hz/FS
+        assert cal["deviation_hz_per_unit"] == pytest.approx(7500.0, rel=0.005)
+        later = broadcast_audio(tmp_path / "later.wav", 3000.0, seed=5)
+        assert main(["analyze", str(later), "--profile", "rx1", "--json"]) == 0
+        d = json.loads(capsys.readouterr().out)["deviation"]
+        assert d["calibrated"] is True
+        assert d["tone_peak_hz"] == pytest.approx(3000.0, rel=0.005)
+        assert d["rms_sqrt2_hz"] == pytest.approx(3000.0, rel=0.005)
+        assert d["mod_index"] == pytest.approx(3.0, rel=0.005)
+
+    def test_stated_deviation(self, tmp_path, capsys):
+        rx = broadcast_audio(tmp_path / "rx.wav", 2000.0, tau=75e-6)
+        argv = [
+            "calibrate", "deviation", "--audio", str(rx), "--deviation", "2k",
+            "--deemphasis", "75us", "--profile", "rx2", "--json",
+        ]  # fmt: skip
+        assert main(argv) == 0
+        cal = json.loads(capsys.readouterr().out)
+        assert cal["deviation_hz_per_unit"] == pytest.approx(7500.0, rel=0.005)
+
+    def test_mismatched_pair(self, ffmpeg, tmp_path, capsys):
+        beat = beat_fm(ffmpeg, tmp_path / "beat.wav", fm=800.0)
+        rx = broadcast_audio(tmp_path / "rx.wav", 2000.0)
+        rc = main([
+            "calibrate", "deviation", "--audio", str(rx), "--reference", str(beat),
+            "--profile", "x",
+        ])  # fmt: skip
+        assert rc == 2
+        assert "not the same modulation" in capsys.readouterr().err
