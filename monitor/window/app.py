@@ -108,6 +108,9 @@ class LiveWindow(QtWidgets.QMainWindow):
             from monitor.commands.live import CsvLog
 
             self._log = CsvLog(log_path)
+        from monitor.window.qtfix import bool_ref_guard
+
+        self._refguard = bool_ref_guard()
         self._building = True
         self._build()
         self._building = False
@@ -539,6 +542,7 @@ class LiveWindow(QtWidgets.QMainWindow):
     # -- the timer ------------------------------------------------------------------------
 
     def _frame(self) -> None:
+        self._refguard.top_up()
         self.frames += 1
         s = self.session
         if s is not None:
@@ -782,4 +786,5 @@ def run_window(config: LiveConfig, *, log_path: str | None = None) -> int:
         app.exec()
     finally:
         win.shutdown()
+        win._refguard.top_up()
     return 0
