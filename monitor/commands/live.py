@@ -165,13 +165,19 @@ def config_from_args(args):
     """
     from monitor.live import LiveConfig
 
-    settings = analyze.settings_from_args(args)
+    mode_for = getattr(analyze, "mode_for", None)
+    mode = mode_for(args.file, args) if mode_for is not None else (args.mode or "audio")
+    try:
+        settings = analyze.settings_from_args(args, mode)
+    except TypeError:  # an analyze without the mode argument
+        args.mode = mode
+        settings = analyze.settings_from_args(args)
     meta = dict(analyze.meta_from_args(args))
     for key, dest in (("dial_hz", "dial"), ("sideband", "sideband"), ("harmonic", "harmonic")):
         value = getattr(args, dest, None)
         if value is not None:
             meta.setdefault(key, value)
-    if args.mode == "iq" and meta.get("dial_hz") is not None:
+    if mode == "iq" and meta.get("dial_hz") is not None:
         meta.setdefault("center_hz", meta["dial_hz"])
     return LiveConfig(
         file=args.file,

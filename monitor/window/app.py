@@ -305,7 +305,7 @@ class LiveWindow(QtWidgets.QMainWindow):
 
         self.filter_box = self._combo(FILTER_CHOICES, s.filter)
         form.addRow("filter", self.filter_box)
-        deemph = getattr(s, "deemphasis", None)
+        deemph = getattr(getattr(s, "fm", None), "deemphasis", None)
         self.deemph_box = self._combo(DEEMPHASIS, deemph if deemph in DEEMPHASIS else "none")
         form.addRow("de-emphasis", self.deemph_box)
         self.dial_edit = QtWidgets.QLineEdit(
@@ -419,7 +419,7 @@ class LiveWindow(QtWidgets.QMainWindow):
             mode=mode,
             gate_s=float(self.gate_box.currentData()),
             filter=self.filter_box.currentData(),
-            deemphasis=deemph,
+            fm=_fm_settings(c.settings, mode, deemph),
         )
 
     def _controls_changed(self, *_args) -> None:
@@ -733,6 +733,21 @@ class LiveWindow(QtWidgets.QMainWindow):
         super().closeEvent(event)
 
 
+def _fm_settings(settings, mode: str, deemphasis: str):
+    """The FM settings for `mode` with the window's de-emphasis (None in audio mode, or
+    when the engine has no FM settings)."""
+    if mode not in ("beat", "iq"):
+        return None
+    try:
+        from monitor.fm_engine import FmSettings
+    except ImportError:
+        return None
+    fm = getattr(settings, "fm", None)
+    if isinstance(fm, FmSettings):
+        return replace(fm, deemphasis=deemphasis)
+    return FmSettings(deemphasis=deemphasis)
+
+
 def config_with_stored(config: LiveConfig) -> tuple[LiveConfig, str | None]:
     """Fill the controls the command line left at their defaults from the stored settings.
 
@@ -758,8 +773,9 @@ def config_with_stored(config: LiveConfig) -> tuple[LiveConfig, str | None]:
         changes["gate_s"] = float(v["gate_s"])
     if s.filter == "none" and "filter" in v:
         changes["filter"] = v["filter"]
-    if "deemphasis" in v:
-        changes["deemphasis"] = v["deemphasis"]
+    mode = changes.get("mode", s.mode)
+    if v.get("deemphasis") in DEEMPHASIS and mode in ("beat", "iq"):
+        changes["fm"] = _fm_settings(s, mode, v["deemphasis"])
     try:
         c = c.with_settings(**changes)
     except ValueError:
