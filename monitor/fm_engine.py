@@ -33,6 +33,7 @@ DEEMPHASIS = {"none": None, "50us": 50e-6, "75us": 75e-6}
 MIN_IF_BANDWIDTH_HZ = 200.0
 # The carrier cluster must stand this far above the spectral floor (dB) to count.
 CARRIER_MIN_SNR_DB = 15.0
+SPECTRUM_SEGMENTS_PER_GATE = 4
 # An IF band holding less of the signal's power than this gives no trustworthy deviation.
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
@@ -242,20 +243,32 @@ def power_fraction_within(x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, 
     return float(p[sel].sum()) / total
 
 
-def _phase_line(z: np.ndarray, fs_hz: float):
-    """Least-squares line through the unwrapped baseband phase.
+def _phase_line(z: np.ndarray, inst_hz: np.ndarray, fs_hz: float):
+    """Least-squares line through the baseband phase of one gate.
 
-    Returns (offset_hz, phase_at_centre, t_centre_s, sigma_f_hz, sigma_phase, cnr_linear):
+    The phase is built from the discriminator's own output (its running sum, anchored at
+    the first sample's angle), which costs far less than unwrapping angles again.
+    Returns (offset_hz, phase_at_centre, t_centre_s, sigma_f_hz, sigma_phase, cnr_linear);
     the uncertainties are those of white phase noise with variance var(|z|)/mean(|z|)^2
     (noise splits equally between the envelope and the phase of a constant-envelope
     signal).
     """
-    n = z.shape[0]
-    ph = np.unwrap(np.angle(z))
+    n = inst_hz.shape[0]
+    # The discriminator's output k belongs to baseband sample j0 + k (its last output is
+    # one sample behind the last baseband sample, after the droop equaliser's delay).
+    j0 = z.shape[0] - n - 1
+    if j0 < 0 or n < 16:
+        ph = np.unwrap(np.angle(z))
+        j0, n = 0, z.shape[0]
+    else:
+        ph = np.cumsum(inst_hz) * (2 * np.pi / fs_hz)
+        # anchor the running sum to the baseband's angle (circular mean over a stride)
+        idx = np.arange(0, n, max(1, n // 64))
+        ph += float(np.angle(np.sum(z[j0 + idx] * np.exp(-1j * ph[idx]))))
     t = (np.arange(n) - (n - 1) / 2.0) / fs_hz
     tt = float(np.dot(t, t))
-    slope = float(np.dot(t, ph - ph.mean())) / tt
-    intercept = float(ph.mean())
+    mean_ph = float(ph.mean())
+    slope = float(np.dot(t, ph)) / tt
     env = np.abs(z)
     a = float(env.mean())
     var_env = float(env.var())
@@ -263,7 +276,8 @@ def _phase_line(z: np.ndarray, fs_hz: float):
     sigma_f = math.sqrt(sigma_ph2 / tt) / (2 * math.pi)
     sigma_p = math.sqrt(sigma_ph2 / n)
     cnr = 0.5 / sigma_ph2 if sigma_ph2 > 0 else math.inf
-    return slope / (2 * math.pi), intercept, (n - 1) / 2.0 / fs_hz, sigma_f, sigma_p, cnr
+    t_c = (j0 + (n - 1) / 2.0) / fs_hz
+    return slope / (2 * math.pi), mean_ph, t_c, sigma_f, sigma_p, cnr
 
 
 class FmProcessor:
@@ -295,6 +309,7 @@ class FmProcessor:
         self._run_t0 = 0.0
         self._z_count = 0
         self._settle = 0
+        self._summary_cache = None
         self._cnrs: list[float] = []
         self._iq_healths: list = []
         self._levels = _levels()
@@ -361,7 +376,7 @@ class FmProcessor:
         self._post_sos = self._post_chain(post, fms.deemphasis, fs_out)
         self._power = dfm.ModulationPowerMeter(fs_out)
         nfft = 1 << max(8, min(14, int(math.log2(max(256, fs_out / 4.0)))))
-        self._spec = dspec.SpectrumAverager(fs_out, nfft, kind="complex")
+        self._spec = dspec.SpectrumAverager(fs_out, nfft, kind="complex", overlap=0.0)
 
     @staticmethod
     def _post_chain(post: str, deemph: str, fs_out: float):
@@ -401,7 +416,7 @@ class FmProcessor:
                 overflow=overflow, **lvl,
             )  # fmt: skip
         fs_out = demod.fs_out_hz
-        offset, phase, t_c, s_f, s_p, cnr = _phase_line(z, fs_out)
+        offset, phase, t_c, s_f, s_p, cnr = _phase_line(z, inst, fs_out)
         cnr_db = 10 * math.log10(cnr) if cnr > 0 else -math.inf
         self._cnrs.append(cnr)
         carrier = self._carrier.nco_hz + offset
@@ -411,7 +426,8 @@ class FmProcessor:
         t_ref = self._run_t0 + self._z_count / fs_out + t_c
         self._z_count += z.shape[0]
         self._gates.append(_GatePhase(t_ref, offset, s_f, phase, s_p, contiguous and not overflow))
-        self._spec.update(z)
+        # a share of each gate is plenty for the averaged spectrum (bandwidths)
+        self._spec.update(z[: SPECTRUM_SEGMENTS_PER_GATE * self._spec.nfft])
         self._last_baseband = z
         self._last_offset_hz = offset
         dev = inst - offset
@@ -430,7 +446,16 @@ class FmProcessor:
         qual = None
         if cnr_db >= CNR_MIN_DB and dev_f.shape[0] >= 64:
             try:
-                tone = dt.estimate_tone(dev_f, fs_out, check_finite=False)
+                tone = None
+                if self._tones:  # track the last tone; search afresh if it was lost
+                    prev = self._tones[-1]
+                    tone = dt.estimate_tone(
+                        dev_f, fs_out, start_hz=prev.frequency_hz, check_finite=False
+                    )
+                    if abs(tone.frequency_hz - prev.frequency_hz) > fs_out / dev_f.shape[0]:
+                        tone = None
+                if tone is None:
+                    tone = dt.estimate_tone(dev_f, fs_out, check_finite=False)
             except ValueError:
                 tone = None
             if tone is not None and tone.gate_snr_db >= 20.0 and tone.amplitude > 0.5:
@@ -559,6 +584,14 @@ class FmProcessor:
         )  # fmt: skip
 
     def fm_summary(self) -> FmSummary | None:
+        key = len(self._gates)
+        if self._summary_cache is not None and self._summary_cache[0] == key:
+            return self._summary_cache[1]
+        s = self._fm_summary()
+        self._summary_cache = (key, s)
+        return s
+
+    def _fm_summary(self) -> FmSummary | None:
         if not self._gates or not self._dev_figs:
             return None
         k = self.k
