@@ -161,10 +161,14 @@ class TestBadInput:
         self._fails(capsys, "analyze", str(tmp_path / "r.wav"), match="sample rate 50 Hz")
 
     def test_nan(self, tmp_path, capsys):
+        # A NaN stretch is silenced and named; a file of nothing but NaN is unusable.
         x = np.zeros(48000)
         x[100] = np.nan
         sf.write(tmp_path / "nan.wav", x, 48000, subtype="FLOAT")
-        self._fails(capsys, "analyze", str(tmp_path / "nan.wav"), match="NaN or infinite")
+        d = run_json(capsys, "analyze", str(tmp_path / "nan.wav"), "--json")
+        assert "1 NaN/Inf sample at 0.002 s replaced by silence" in " ".join(d["warnings"])
+        sf.write(tmp_path / "allnan.wav", np.full(4800, np.nan), 48000, subtype="FLOAT")
+        self._fails(capsys, "analyze", str(tmp_path / "allnan.wav"), match="NaN or infinite")
 
     def test_bad_gate(self, tmp_path, capsys):
         p = write_tone(tmp_path / "a.wav")
@@ -257,3 +261,23 @@ class TestDemo:
         # the clock calibration from the reference the test tone reads 1 kHz again
         assert files["rx-audio-1khz.wav"]["tone"]["frequency_hz"] == pytest.approx(1000.0, abs=1e-4)
         assert files["rx-audio-1khz.wav"]["clock"]["ppm"] == pytest.approx(37.5, abs=0.01)
+
+
+class TestLazyImports:
+    def test_analyze_without_portaudio_or_qt(self, tmp_path):
+        # file analysis must work on a machine without PortAudio or a display: block the
+        # sound and GUI packages entirely in a fresh interpreter
+        import subprocess
+        import sys
+
+        p = write_tone(tmp_path / "a.wav")
+        code = (
+            "import sys\n"
+            "for m in ('sounddevice', 'PySide6', 'pyqtgraph', 'matplotlib'):\n"
+            "    sys.modules[m] = None\n"
+            "from monitor.cli import main\n"
+            f"sys.exit(main(['analyze', {str(p)!r}, '--json']))\n"
+        )
+        r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+        assert r.returncode == 0, r.stderr
+        assert json.loads(r.stdout)["tone"]["frequency_hz"] == pytest.approx(1234.5, abs=1e-3)
