@@ -341,7 +341,7 @@ def _solve_normal(g: np.ndarray, p: np.ndarray, well_separated: bool) -> np.ndar
     """Least-squares coefficients from the normal equations G b = p.
 
     Columns whose norm vanishes (sin at 0 or fs/2) get 0. Nearly collinear columns (lines
-    closer than about two bins, or a line near 0 / fs/2) take an eigenvalue-truncated
+    closer than half a bin, or a line that near 0 / fs/2) take an eigenvalue-truncated
     pseudo-inverse of the Jacobi-scaled Gram matrix instead of a plain solve.
     """
     diag = np.diag(g)
@@ -354,12 +354,13 @@ def _solve_normal(g: np.ndarray, p: np.ndarray, well_separated: bool) -> np.ndar
     gs = g / np.outer(d, d)
     ps = p / d
     if well_separated:
-        bs = np.linalg.solve(gs, ps)
-    else:
-        ev, vec = np.linalg.eigh(gs)
-        inv = np.where(ev > 1e-10 * ev[-1], 1.0 / np.where(ev > 0, ev, 1.0), 0.0)
-        bs = vec @ (inv * (vec.T @ ps))
-    return bs / d
+        try:
+            return np.linalg.solve(gs, ps) / d
+        except np.linalg.LinAlgError:
+            pass
+    ev, vec = np.linalg.eigh(gs)
+    inv = np.where(ev > 1e-10 * ev[-1], 1.0 / np.where(ev > 0, ev, 1.0), 0.0)
+    return (vec @ (inv * (vec.T @ ps))) / d
 
 
 @lru_cache(maxsize=8)
@@ -590,11 +591,13 @@ def measure_quality(
     g = _gram(w, n)
     p = np.concatenate([[a.sum()], z.real, z.imag])
     xx = float(np.dot(a, a))
-    # Lines closer than ~2 bins to each other or to their mirror images at 0 / fs/2
+    # Lines closer than half a bin to each other or to their mirror images at 0 / fs/2
     # make the Gram matrix ill-conditioned: take the careful solver then.
     ws = np.sort(w)
     gap = min(float(ws[0]), float(np.pi - ws[-1]), float(np.diff(ws).min()) if k > 1 else 9.0)
-    b = _solve_normal(g, p, gap > 2.0 * np.pi / n)
+    # Lines a bin or more apart are nearly orthogonal (Dirichlet kernel); half a bin
+    # still leaves the scaled Gram matrix well conditioned for a plain solve.
+    b = _solve_normal(g, p, gap > np.pi / n)
     bc, bs = b[1 : k + 1], b[k + 1 :]
     dg = np.diag(g)
     energy = bc * bc * dg[1 : k + 1] + 2.0 * bc * bs * g[1 : k + 1, k + 1 :].diagonal()
