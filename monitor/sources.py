@@ -11,6 +11,7 @@ recordings (`.sigmf-meta` / `.sigmf-data`, real and complex datatypes).
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 import os
@@ -25,6 +26,19 @@ from monitor.errors import InputError
 MIN_RATE_HZ = 1000.0
 MAX_RATE_HZ = 50e6
 DEFAULT_BLOCK_FRAMES = 1 << 16
+# Samples (all channels together) fetched per read: whatever a header claims about its
+# channels, one read never allocates more than 16 MiB of float64.
+MAX_READ_SAMPLES = 1 << 21
+# Non-finite runs closer than this many samples count as one stretch: each stretch splits
+# the blocks (a flagged block starts at it), so scattered NaNs must not make a block per
+# sample. 16 samples is the engine's shortest gate.
+NAN_JOIN_SAMPLES = 16
+# Stretches named in the warning; the rest are counted.
+NAN_SPANS_LISTED = 5
+# Sidecar field limits: a sound-card clock is off by tens of ppm (common practice); a
+# factor (1 + ppm * 1e-6) near zero or negative is a corrupt file, not a card.
+MAX_ABS_CLOCK_PPM = 1e5
+MAX_HARMONIC = 1000
 
 SIGMF_SUFFIXES = (".sigmf-meta", ".sigmf-data", ".sigmf")
 
@@ -37,8 +51,65 @@ def _check_rate(path: str, fs_hz: float) -> None:
         )
 
 
+def _check_block_frames(block_frames) -> int:
+    if isinstance(block_frames, bool) or not isinstance(block_frames, (int, np.integer)):
+        raise TypeError(f"block_frames must be an integer, got {type(block_frames).__name__}")
+    if block_frames < 1:
+        raise ValueError(f"block_frames={block_frames} must be at least 1")
+    return int(block_frames)
+
+
+def _is_number(value) -> bool:
+    """A JSON number that fits a float (bools and 400-digit integers are not)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    try:
+        return math.isfinite(float(value))
+    except OverflowError:
+        return False
+
+
+class _NonFinite:
+    """Bookkeeping of the non-finite samples replaced while a stream is read."""
+
+    def __init__(self):
+        self.count = 0
+        self.n_spans = 0
+        self.listed: list[list[int]] = []  # [first, last] sample of the first stretches
+        self.last: list[int] | None = None  # the stretch still growing
+
+    def add(self, first: int, last: int) -> None:
+        if self.last is not None and first - self.last[1] <= NAN_JOIN_SAMPLES:
+            self.last[1] = last
+            return
+        self.n_spans += 1
+        self.last = [first, last]
+        if len(self.listed) < NAN_SPANS_LISTED:
+            self.listed.append(self.last)  # the same list: it grows with `last`
+
+    def message(self, fs_hz: float) -> str:
+        def span(a: int, b: int) -> str:
+            return f"{a / fs_hz:.3f} s" if a == b else f"{a / fs_hz:.3f}-{b / fs_hz:.3f} s"
+
+        where = ", ".join(span(a, b) for a, b in self.listed)
+        more = self.n_spans - len(self.listed)
+        if more > 0:
+            where += f" and {more} more stretch{'es' if more > 1 else ''}"
+        what = "NaN/Inf sample" if self.count == 1 else "NaN/Inf samples"
+        return (
+            f"{self.count} {what} at {where} replaced by silence; gates across them are not joined"
+        )
+
+
 class _BlockReader:
-    """Common iteration: checks every block for NaN/Inf and counts frames."""
+    """Common iteration: counts frames, replaces non-finite samples by silence.
+
+    A stretch of NaN/Inf samples (a converter or a writer that failed for a moment) is
+    replaced by zeros and treated as lost input: the block is split so that one block
+    starts where the stretch starts and one where it ends, both flagged `overflow`, so
+    the engine does not follow the phase across the gap. The stretches are named in
+    `warnings`. A stream with no finite sample at all raises `InputError` at its end.
+    """
 
     meta: StreamMeta
     warnings: list[str]
@@ -46,25 +117,55 @@ class _BlockReader:
     def _raw_blocks(self) -> Iterator[np.ndarray]:  # pragma: no cover - abstract
         raise NotImplementedError
 
+    def _warn(self, text: str) -> None:
+        if text not in self.warnings:  # iterating twice must not say it twice
+            self.warnings.append(text)
+
     def __iter__(self) -> Iterator[Block]:
         start = 0
+        bad = _NonFinite()
         for samples in self._raw_blocks():
-            if samples.size == 0:
+            n = samples.shape[0]
+            if n == 0:
                 continue
-            if not np.all(np.isfinite(samples)):
-                bad = int(np.argmin(np.isfinite(samples)))
-                raise InputError(
-                    f"{self.meta.source}: NaN or infinite sample at "
-                    f"{(start + bad) / self.meta.fs_hz:.3f} s (sample {start + bad})"
-                )
-            yield Block(samples, start, self.meta)
-            start += samples.shape[0]
+            finite = np.isfinite(samples)
+            if finite.all():
+                yield Block(samples, start, self.meta)
+                start += n
+                continue
+            yield from self._split_non_finite(samples, finite, start, bad)
+            start += n
         self.frames_read = start
+        if bad.count:
+            if bad.count >= start:
+                raise InputError(
+                    f"{self.meta.source}: no usable samples: all {start} samples are NaN or "
+                    "infinite"
+                )
+            self._warn(bad.message(self.meta.fs_hz))
         expected = self.meta.frames
         if expected is not None and start < expected:
-            self.warnings.append(
-                f"file is truncated: header promises {expected} frames, found {start}"
-            )
+            self._warn(f"file is truncated: header promises {expected} frames, found {start}")
+
+    def _split_non_finite(
+        self, samples: np.ndarray, finite: np.ndarray, start: int, bad: _NonFinite
+    ) -> Iterator[Block]:
+        samples = np.where(finite, samples, 0.0).astype(samples.dtype, copy=False)
+        idx = np.flatnonzero(~finite)
+        bad.count += int(idx.size)
+        gaps = np.flatnonzero(np.diff(idx) > NAN_JOIN_SAMPLES)
+        firsts = idx[np.r_[0, gaps + 1]]
+        lasts = idx[np.r_[gaps, idx.size - 1]]
+        cuts = set()
+        for a, b in zip(firsts.tolist(), lasts.tolist(), strict=True):
+            bad.add(start + a, start + b)
+            cuts.add(a)
+            cuts.add(b + 1)
+        n = samples.shape[0]
+        edges = sorted(cuts | {0, n})
+        for p, q in itertools.pairwise(edges):
+            if q > p:
+                yield Block(samples[p:q], start + p, self.meta, overflow=p in cuts)
 
     def close(self) -> None:
         pass
@@ -104,6 +205,7 @@ class SoundFileSource(_BlockReader):
 
         self.path = str(path)
         self.warnings: list[str] = []
+        block_frames = _check_block_frames(block_frames)
         _check_exists(self.path)
         try:
             self._f = sf.SoundFile(self.path)
@@ -135,7 +237,8 @@ class SoundFileSource(_BlockReader):
         self.channel = channel
         self.mix = mix
         self.swap_iq = swap_iq
-        self.block_frames = int(block_frames)
+        self.block_frames = block_frames
+        self._read_frames = max(1, min(block_frames, MAX_READ_SAMPLES // max(channels, 1)))
         if channels == 2 and mode != "iq" and _looks_like_iq(self._f):
             self.warnings.append(
                 "the two channels look like I/Q (equal level, 90 degrees apart): "
@@ -156,10 +259,13 @@ class SoundFileSource(_BlockReader):
         import soundfile as sf
 
         f = self._f
-        f.seek(0)
+        try:
+            f.seek(0)
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise InputError(f"{self.path}: cannot rewind ({exc})") from None
         while True:
             try:
-                data = f.read(self.block_frames, dtype="float64", always_2d=True)
+                data = f.read(self._read_frames, dtype="float64", always_2d=True)
             except (sf.LibsndfileError, RuntimeError) as exc:
                 raise InputError(f"{self.path}: read failed ({exc})") from None
             if data.shape[0] == 0:
@@ -197,6 +303,7 @@ class SigMFSource(_BlockReader):
     ):
         self.path = str(path)
         self.warnings: list[str] = []
+        block_frames = _check_block_frames(block_frames)
         meta_path = _sigmf_meta_path(self.path)
         _check_exists(meta_path)
         try:
@@ -207,12 +314,27 @@ class SigMFSource(_BlockReader):
             raise InputError(
                 f"{self.path}: not a readable SigMF recording ({type(exc).__name__}: {exc})"
             ) from None
-        g = self._f.get_global_info()
-        datatype = str(g.get("core:datatype", ""))
+        if not hasattr(self._f, "read_samples"):
+            raise InputError(f"{self.path}: is a SigMF collection, not one recording")
+        try:
+            g = self._f.get_global_info()
+            captures = self._f.get_captures()
+        except Exception as exc:  # sigmf's accessors on broken metadata
+            raise InputError(
+                f"{self.path}: not a readable SigMF recording ({type(exc).__name__}: {exc})"
+            ) from None
+        if not isinstance(g, dict):
+            raise InputError(f"{self.path}: SigMF metadata has no 'global' object")
+        datatype = g.get("core:datatype", "")
+        if not isinstance(datatype, str):
+            raise InputError(f"{self.path}: SigMF core:datatype {datatype!r} is not a string")
         fs = g.get("core:sample_rate")
-        if not isinstance(fs, (int, float)):
+        if isinstance(fs, bool) or not isinstance(fs, (int, float)):
             raise InputError(f"{self.path}: SigMF metadata has no numeric core:sample_rate")
-        fs = float(fs)
+        try:
+            fs = float(fs)
+        except OverflowError:
+            fs = math.inf
         _check_rate(self.path, fs)
         is_complex = datatype.startswith("c")
         if mode == "iq" and not is_complex:
@@ -224,29 +346,38 @@ class SigMFSource(_BlockReader):
             raise InputError(
                 f"{self.path}: SigMF datatype {datatype!r} is complex I/Q; use --mode iq"
             )
+        channels = g.get("core:num_channels", 1)
+        if channels is None:
+            channels = 1
+        if isinstance(channels, bool) or not isinstance(channels, int) or not channels >= 1:
+            raise InputError(
+                f"{self.path}: SigMF core:num_channels {channels!r} is not a positive integer"
+            )
         try:
             frames = int(self._f.sample_count)
-        except Exception:
+        except Exception:  # sigmf derives it from the data file; any failure: no samples
             frames = 0
         if frames <= 0:
             raise InputError(f"{self.path}: SigMF recording holds no samples")
-        channels = int(g.get("core:num_channels", 1) or 1)
         if not 0 <= channel < channels:
             raise InputError(
                 f"{self.path}: --channel {channel} does not exist ({channels} channel(s))"
             )
-        captures = self._f.get_captures() or [{}]
-        center = captures[0].get("core:frequency")
+        first = captures[0] if isinstance(captures, list) and captures else {}
+        if not isinstance(first, dict):
+            first = {}
+        center = first.get("core:frequency")
         extra = {
             "datatype": datatype,
-            "datetime": captures[0].get("core:datetime"),
+            "datetime": first.get("core:datetime"),
             "description": g.get("core:description"),
         }
         self.mode, self.channel, self.swap_iq = mode, channel, swap_iq
         self.channels = channels
-        self.block_frames = int(block_frames)
+        self.block_frames = block_frames
+        self._read_frames = max(1, min(block_frames, MAX_READ_SAMPLES // channels))
         fields = dict(meta or {})
-        if fields.get("center_hz") is None and isinstance(center, (int, float)):
+        if fields.get("center_hz") is None and _is_number(center):
             fields["center_hz"] = float(center)
         self.meta = StreamMeta(
             source=self.path,
@@ -262,7 +393,7 @@ class SigMFSource(_BlockReader):
         total = self.meta.frames or 0
         pos = 0
         while pos < total:
-            count = min(self.block_frames, total - pos)
+            count = min(self._read_frames, total - pos)
             try:
                 data = np.asarray(self._f.read_samples(start_index=pos, count=count))
             except Exception as exc:
@@ -270,9 +401,18 @@ class SigMFSource(_BlockReader):
                     f"{self.path}: read failed at sample {pos} ({type(exc).__name__}: {exc})"
                 ) from None
             if data.ndim == 2:
+                if not 0 <= self.channel < data.shape[1]:
+                    raise InputError(
+                        f"{self.path}: the data holds {data.shape[1]} channel(s), "
+                        f"--channel {self.channel} does not exist"
+                    )
                 data = data[:, self.channel]
+            if data.ndim != 1:
+                raise InputError(f"{self.path}: unexpected sample layout {data.shape}")
             if data.shape[0] == 0:
                 return
+            if self.mode != "iq" and np.iscomplexobj(data):
+                raise InputError(f"{self.path}: the data is complex; use --mode iq")
             if self.mode == "iq":
                 data = data.astype(np.complex128)
                 if self.swap_iq:
@@ -307,7 +447,7 @@ class ArraySource(_BlockReader):
             x = x.astype(np.float64)
         self._x = x
         self.warnings: list[str] = []
-        self.block_frames = int(block_frames)
+        self.block_frames = _check_block_frames(block_frames)
         self.meta = StreamMeta(
             source=source, fs_hz=float(fs_hz), mode=mode, frames=x.shape[0], **(meta or {})
         )
@@ -321,21 +461,36 @@ def _looks_like_iq(f) -> bool:
     """True when the first second of a stereo file behaves like I/Q: both channels carry
     a signal of equal level, uncorrelated with each other, and Q is (close to) the Hilbert
     transform of I."""
+    import soundfile as sf
     from scipy.signal import hilbert
 
-    f.seek(0)
-    data = f.read(min(int(f.samplerate), 1 << 17), dtype="float64", always_2d=True)
-    f.seek(0)
+    try:
+        f.seek(0)
+        data = f.read(min(int(f.samplerate), 1 << 17), dtype="float64", always_2d=True)
+        f.seek(0)
+    except (sf.LibsndfileError, RuntimeError):
+        return False  # the reader says what is wrong when it gets there
     if data.shape[0] < 256:
         return False
+    data = np.where(np.isfinite(data), data, 0.0)  # the reader names and silences them
+    with np.errstate(all="ignore"):
+        return _iq_like(data, hilbert)
+
+
+def _iq_like(data: np.ndarray, hilbert) -> bool:
     i, q = data[:, 0] - data[:, 0].mean(), data[:, 1] - data[:, 1].mean()
     pi, pq = float(np.dot(i, i)), float(np.dot(q, q))
-    if pi <= 0 or pq <= 0 or not 0.5 < pi / pq < 2.0:
+    if not (math.isfinite(pi) and math.isfinite(pq)) or pi <= 0 or pq <= 0:
+        return False
+    if not 0.5 < pi / pq < 2.0:
         return False
     if abs(float(np.dot(i, q))) > 0.3 * math.sqrt(pi * pq):
         return False
     h = np.imag(hilbert(i))
-    c = abs(float(np.dot(h, q))) / math.sqrt(float(np.dot(h, h)) * pq)
+    ph = float(np.dot(h, h))
+    if not (math.isfinite(ph) and ph > 0):
+        return False
+    c = abs(float(np.dot(h, q))) / math.sqrt(ph * pq)
     return c > 0.9
 
 
@@ -360,13 +515,67 @@ def is_sigmf(path: str | os.PathLike) -> bool:
     return str(path).endswith(SIGMF_SUFFIXES)
 
 
-def sidecar_metadata(path: str | os.PathLike) -> dict:
-    """StreamMeta fields stored beside a recording by `swingmeter record`, if any."""
-    from monitor.record import read_sidecar
+def _read_sidecar(path: str) -> dict:
+    """`monitor.record.read_sidecar` (missing is {}), with JSON the parser itself chokes
+    on (nesting too deep, integers of thousands of digits) reported as corrupt."""
+    from monitor.record import read_sidecar, sidecar_path
 
-    data = read_sidecar(path, missing_ok=True)
+    try:
+        return read_sidecar(path, missing_ok=True)
+    except (RecursionError, ValueError) as exc:
+        raise InputError(
+            f"{sidecar_path(path)}: corrupt metadata sidecar ({type(exc).__name__})"
+        ) from None
+
+
+def sidecar_metadata(path: str | os.PathLike) -> dict:
+    """StreamMeta fields stored beside a recording by `swingmeter record`, if any.
+
+    Parameters
+    ----------
+    path : path-like
+        The recording (its sidecar is `PATH.swingmeter.json`).
+
+    Returns
+    -------
+    dict
+        `dial_hz`, `center_hz`, `clock_ppm`, `harmonic`, `sideband`, `profile` where the
+        sidecar gives them; {} without a sidecar.
+
+    Raises
+    ------
+    InputError
+        If the sidecar is corrupt or a field has an impossible value (a frequency that is
+        not a finite number, a clock correction beyond +-1e5 ppm, harmonic < 1, ...).
+    """
+    from monitor.record import sidecar_path
+
+    path = str(path)
+    data = _read_sidecar(path)
     keys = ("dial_hz", "center_hz", "clock_ppm", "harmonic", "sideband", "profile")
-    return {k: data[k] for k in keys if data.get(k) is not None}
+    out = {k: data[k] for k in keys if data.get(k) is not None}
+
+    def bad(key: str) -> InputError:
+        return InputError(f"{sidecar_path(path)}: corrupt metadata sidecar ({key}={out[key]!r})")
+
+    for key in ("dial_hz", "center_hz"):
+        if key in out:
+            if not _is_number(out[key]):
+                raise bad(key)
+            out[key] = float(out[key])
+    if "clock_ppm" in out:
+        if not (_is_number(out["clock_ppm"]) and abs(out["clock_ppm"]) <= MAX_ABS_CLOCK_PPM):
+            raise bad("clock_ppm")
+        out["clock_ppm"] = float(out["clock_ppm"])
+    if "harmonic" in out:
+        h = out["harmonic"]
+        if isinstance(h, bool) or not isinstance(h, int) or not 1 <= h <= MAX_HARMONIC:
+            raise bad("harmonic")
+    if "sideband" in out and out["sideband"] not in ("upper", "lower"):
+        raise bad("sideband")
+    if "profile" in out and not isinstance(out["profile"], str):
+        raise bad("profile")
+    return out
 
 
 def recorded_mode(path: str | os.PathLike) -> str | None:
@@ -376,14 +585,12 @@ def recorded_mode(path: str | os.PathLike) -> str | None:
         meta_path = Path(_sigmf_meta_path(path))
         try:
             g = json.loads(meta_path.read_text(encoding="utf-8")).get("global", {})
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError, AttributeError):
+        except (OSError, UnicodeDecodeError, ValueError, RecursionError, AttributeError):
             return None  # the reader will say what is wrong
-        datatype = str(g.get("core:datatype", "")) if isinstance(g, dict) else ""
-        return "iq" if datatype.startswith("c") else None
-    from monitor.record import read_sidecar
-
+        datatype = g.get("core:datatype", "") if isinstance(g, dict) else ""
+        return "iq" if isinstance(datatype, str) and datatype.startswith("c") else None
     try:
-        mode = read_sidecar(path, missing_ok=True).get("mode")
+        mode = _read_sidecar(path).get("mode")
     except InputError:
         return None
     return mode if mode in MODES else None

@@ -192,12 +192,65 @@ class TestUnusableInput:
             open_source(p)
 
     @pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
-    def test_non_finite_samples(self, tmp_path, bad):
+    def test_non_finite_samples_become_silence(self, tmp_path, bad):
+        # A stretch of 12 non-finite samples from sample 1234 at 8 kHz (0.15425 s to
+        # 0.155625 s): replaced by zeros, named in a warning, the block holding it flagged.
         x = reference_signal()
-        x[1234] = bad
+        x[1234:1246] = bad
         p = tmp_path / "nan.wav"
         sf.write(p, x, 8000, subtype="FLOAT")
-        with pytest.raises(InputError, match=r"NaN or infinite sample at 0\.154 s"):
+        src = open_source(p, block_frames=1000)
+        with src:
+            blocks = list(src)
+        y = np.concatenate([b.samples for b in blocks])
+        assert np.all(y[1234:1246] == 0.0)
+        keep = np.ones(x.size, bool)
+        keep[1234:1246] = False
+        assert np.max(np.abs(y[keep] - x[keep])) <= 1e-7  # float32 rounding
+        # consecutive starts; a flagged block starts at the stretch and one just after it
+        starts = [b.start for b in blocks]
+        assert starts == list(np.cumsum([0] + [len(b) for b in blocks[:-1]]))
+        assert sorted(b.start for b in blocks if b.overflow) == [1234, 1246]
+        assert src.warnings == [
+            "12 NaN/Inf samples at 0.154-0.156 s replaced by silence; "
+            "gates across them are not joined"
+        ]
+
+    def test_scattered_non_finite_samples_are_one_stretch(self, tmp_path):
+        x = reference_signal(8000)
+        x[4000:4100:3] = np.nan  # 34 samples three apart: one stretch, two flagged blocks
+        x[7000] = np.inf
+        src = ArraySource(x, 8000.0)
+        blocks = list(src)
+        assert [b.start for b in blocks if b.overflow] == [4000, 4100, 7000, 7001]
+        assert src.warnings == [
+            "35 NaN/Inf samples at 0.500-0.512 s, 0.875 s replaced by silence; "
+            "gates across them are not joined"
+        ]
+
+    def test_engine_does_not_join_across_non_finite(self, tmp_path):
+        from monitor.engine import AnalysisSettings, run
+
+        fs = 8000
+        t = np.arange(3 * fs) / fs
+        x = 0.5 * np.sin(2 * np.pi * 1000.0 * t)
+        x[12000:12010] = np.nan
+        p = tmp_path / "gap.wav"
+        sf.write(p, x, fs, subtype="FLOAT")
+        with open_source(p) as src:
+            a = run(src, AnalysisSettings(gate_s=0.5))
+        flagged = [r.t_s for r in a.readings if r.overflow]
+        assert flagged == [1.5]
+        assert [r.contiguous for r in a.readings] == [True, True, True, False, True, True]
+        assert any("10 NaN/Inf samples at 1.500-1.501 s" in w for w in a.summary.warnings)
+        # the sine is still read: 1000 Hz exactly as written (the generator's value)
+        assert a.summary.tone.frequency_hz == pytest.approx(1000.0, abs=1e-3)
+
+    @pytest.mark.parametrize("bad", [np.nan, np.inf])
+    def test_all_non_finite_raises(self, tmp_path, bad):
+        p = tmp_path / "allnan.wav"
+        sf.write(p, np.full(500, bad), 8000, subtype="DOUBLE")
+        with pytest.raises(InputError, match="all 500 samples are NaN or infinite"):
             read_all(open_source(p))
 
     def test_iq_needs_two_channels(self, tmp_path):
