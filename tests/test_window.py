@@ -170,6 +170,35 @@ class TestLiveWindow:
         value, sigma = win.freq.text().removesuffix(" Hz").split(" ± ")
         assert abs(float(value) - 1500.25) <= 3 * float(sigma) + 10 ** -len(value.split(".")[1])
 
+    def test_deviation_area_for_ffmpeg_fm(self, qtbot, tmp_path, ffmpeg):
+        pytest.importorskip("monitor.fm_engine")
+        from monitor.fm_engine import FmSettings
+        from monitor.window.app import LiveWindow
+
+        # ffmpeg (independent generator): a 9 kHz beat note frequency-modulated by 800 Hz
+        # with index 2, i.e. a peak deviation of 2 * 800 = 1600 Hz (Carson's definitions).
+        wav = tmp_path / "fm.wav"
+        ffmpeg("-f", "lavfi", "-i",
+               "aevalsrc=0.5*sin(2*PI*9000*t+2*sin(2*PI*800*t)):s=48000:d=1.5", wav)  # fmt: skip
+        settings = AnalysisSettings(mode="beat", gate_s=0.5, fm=FmSettings())
+        meta = {"dial_hz": 40.5e6, "harmonic": 3}
+        config = LiveConfig(file=str(wav), settings=settings, speed=math.inf, meta=meta)
+        win = LiveWindow(config, save_settings=False)
+        qtbot.addWidget(win)
+        _wait_done(qtbot, win)
+        r = win.latest.reading
+        assert win.dev["pos"].text() == f"{r.deviation_peak_pos_hz:+.1f} Hz"
+        assert win.dev["neg"].text() == f"{r.deviation_peak_neg_hz:+.1f} Hz"
+        assert win.mod_index.text() == f"{r.mod_index:.3f}"
+        assert abs(float(win.dev["pos"].text().split()[0]) - 1600.0) < 16.0  # 1 %
+        assert abs(float(win.dev["hold_neg"].text().split()[0]) + 1600.0) < 16.0
+        assert abs(float(win.mod_index.text()) - 2.0) < 0.02
+        # RF = dial + 9 kHz (upper sideband); the counter shows the fundamental RF / 3
+        assert win.freq_label.text() == "fundamental (RF / 3)"
+        assert abs(float(win.freq.text().split()[0]) - (40.5e6 + 9000.0) / 3) < 0.01
+        win.reset_hold()
+        assert win.dev["hold_pos"].text() == ro.DASH
+
     def test_controls_restart_and_persist(self, qtbot, config_dir):
         from monitor.window.app import LiveWindow
 

@@ -308,9 +308,7 @@ class LiveWindow(QtWidgets.QMainWindow):
         deemph = getattr(getattr(s, "fm", None), "deemphasis", None)
         self.deemph_box = self._combo(DEEMPHASIS, deemph if deemph in DEEMPHASIS else "none")
         form.addRow("de-emphasis", self.deemph_box)
-        self.dial_edit = QtWidgets.QLineEdit(
-            "" if c.meta.get("dial_hz") is None else f"{c.meta['dial_hz']:.6g}"
-        )
+        self.dial_edit = QtWidgets.QLineEdit(_frequency_text(c.meta.get("dial_hz")))
         self.dial_edit.setPlaceholderText("e.g. 7.030M")
         self.dial_edit.editingFinished.connect(self._controls_changed)
         form.addRow("dial", self.dial_edit)
@@ -586,10 +584,8 @@ class LiveWindow(QtWidgets.QMainWindow):
             return
         if self._hist_ref is None:
             # offsets from a round reference keep the axis readable at mHz spreads
-            f0 = self._hist_f[0]
-            step = 10.0 ** math.floor(math.log10(abs(f0))) / 100 if f0 else 1.0
-            self._hist_ref = round(f0 / step) * step
-            self.history_plot.setLabel("left", f"frequency − {self._hist_ref:.6g} Hz", units="Hz")
+            self._hist_ref = float(math.floor(self._hist_f[0]))
+            self.history_plot.setLabel("left", f"frequency − {self._hist_ref:.0f} Hz", units="Hz")
         self.history_curve.setData(self._hist_t[:n], self._hist_f[:n] - self._hist_ref)
 
     def _add_waterfall_row(self, v) -> None:
@@ -731,6 +727,16 @@ class LiveWindow(QtWidgets.QMainWindow):
     def closeEvent(self, event) -> None:
         self.shutdown()
         super().closeEvent(event)
+
+
+def _frequency_text(hz: float | None) -> str:
+    """A frequency as the dial field shows it (and `parse_frequency` reads it back)."""
+    if hz is None:
+        return ""
+    for scale, suffix in ((1e9, "G"), (1e6, "M"), (1e3, "k")):
+        if abs(hz) >= scale:
+            return f"{hz / scale:.9g}{suffix}"
+    return f"{hz:.9g}"
 
 
 def _fm_settings(settings, mode: str, deemphasis: str):
