@@ -205,7 +205,8 @@ class QualityFigures:
         10 log10(S / largest spur), spur searched over 0..fs/2 except DC and the
         fundamental (harmonics and hum count as spurs).
     spur_hz : float
-        Frequency of that spur (to a spectrum bin).
+        Frequency of that spur (to a spectrum bin); nan if the record was too short to
+        search (a warning is issued then).
     fundamental_dbfs : float
         Level of the fundamental, AES17 dBFS.
     hum_hz : float or None
@@ -317,8 +318,10 @@ def _gram(w: np.ndarray, n: int) -> np.ndarray:
     p = np.cos(half) + 1j * np.sin(half)
     q = np.cos(n * half) + 1j * np.sin(n * half)
     # All angles with their Dirichlet sums: differences (i, j), sums (i, j), and w_i alone.
-    pa = np.concatenate([np.outer(p, p.conj()), np.outer(p, p), p[:, None]], axis=1)
-    qa = np.concatenate([np.outer(q, q.conj()), np.outer(q, q), q[:, None]], axis=1)
+    pc = np.concatenate([p.conj(), p, [1.0]])
+    qc = np.concatenate([q.conj(), q, [1.0]])
+    pa = p[:, None] * pc  # (K, 2K+1): exp(j a/2) for a = w_i - w_j, w_i + w_j, w_i
+    qa = q[:, None] * qc
     den = pa.imag  # sin(a/2)
     # a = 0 (mod 2 pi), to rounding: the sum is n (its error there is below (n a)^2).
     exact = np.abs(den) < 1e-13
