@@ -139,6 +139,15 @@ class TestMeasureQuality:
         # fundamental's by about 1/(4 pi cycles), 0.0015 dB for 123.5 cycles.
         assert q.fundamental_dbfs == pytest.approx(0.0, abs=0.005)
 
+    def test_ideal_16_bit_half_scale(self):
+        # IEEE Std 1241 ideal quantiser with a sine at half scale (-6.02 dBFS): the
+        # noise q^2/12 is unchanged, so SINAD drops by 6.02 dB to 92.07 dB and the
+        # full-scale ENOB formula reads one bit less (15.0). Tolerances 0.3 dB, 0.05 bit.
+        x = np.round(tone(1234.5678, 48000, amp=0.5) * 32767) / 32767
+        q = measure_quality(x, FS, fundamental_hz=1234.5678)
+        assert q.sinad_db == pytest.approx(98.09 - 6.02, abs=0.3)
+        assert q.enob_bits == pytest.approx(15.0, abs=0.05)
+
     def test_12_db_sinad(self):
         # TIA-603 receiver convention: SINAD = (S+N+D)/(N+D); at 12 dB SINAD, N+D is
         # 25.1 % of the total voltage (references.md [computed]). Noise set from the
@@ -194,6 +203,10 @@ class TestMeasureQuality:
         assert q.thd_percent == pytest.approx(expected, abs=0.05)
         # Fundamental of a +/-0.5 square: amplitude 0.5 * 4/pi (Fourier series).
         assert q.fundamental_power == pytest.approx((2 / math.pi) ** 2 / 2, rel=1e-3)
+        # Its largest spur is the 3rd harmonic at 1/3 of the fundamental: SFDR
+        # 20 log10(3) = 9.54 dB (Fourier series). Tolerance 0.05 dB, one bin in frequency.
+        assert q.sfdr_db == pytest.approx(20 * math.log10(3), abs=0.05)
+        assert q.spur_hz == pytest.approx(3 * 1234.5, abs=FS / 16384)
 
     def test_sox_square_coherent(self, tmp_path):
         # At 1000 Hz the period is 48 samples and every alias lands on a harmonic: the
