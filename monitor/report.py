@@ -668,12 +668,19 @@ def plot_deviation(rec: RecordingReport) -> Plot:
     ax = axes[0]
     t_ms = np.asarray(v.waveform_s) * 1e3
     y = np.asarray(v.waveform, dtype=float)
+    # about six cycles of the tone, so the shape (and any distortion) can be seen
+    tone_hz = (fm or {}).get("mod_tone_hz") if fm else (s.get("tone") or {}).get("frequency_hz")
+    if tone_hz and tone_hz > 0:
+        keep = t_ms <= max(6.0 / tone_hz * 1e3, 2.0)
+        if keep.sum() >= 8:
+            t_ms, y = t_ms[keep], y[keep]
+    style = ".-" if y.size < 200 else "-"
     if v.waveform_unit == "Hz":
-        ax.plot(t_ms, y, color=_DATA, lw=1.0, label="instantaneous deviation")
+        ax.plot(t_ms, y, style, color=_DATA, lw=1.0, ms=3, label="instantaneous deviation")
         ax.set_ylabel("deviation (Hz)")
         ax.set_title("Deviation waveform (after the post filter)", fontsize=10, color=_INK)
     else:
-        ax.plot(t_ms, y, color=_DATA, lw=1.0, label="audio")
+        ax.plot(t_ms, y, style, color=_DATA, lw=1.0, ms=3, label="audio samples")
         ax.set_ylabel("amplitude (full scale)")
         ax.set_title("Audio waveform", fontsize=10, color=_INK)
     ax.axhline(0, color=_GUIDE, lw=0.6)
@@ -686,7 +693,7 @@ def plot_deviation(rec: RecordingReport) -> Plot:
         ax2 = axes[1]
         if counts.size and counts.sum() > 0:
             # regroup the 1 Hz bins into about 80 for the eye
-            group = max(1, int(math.ceil(counts.size / 80)))
+            group = _nice_group(counts.size * h["bin_hz"] / 80.0, h["bin_hz"])
             m = int(math.ceil(counts.size / group)) * group
             c = np.pad(counts, (0, m - counts.size)).reshape(-1, group).sum(axis=1)
             edges = h["first_edge_hz"] + h["bin_hz"] * group * np.arange(c.size + 1)
@@ -706,32 +713,54 @@ def plot_deviation(rec: RecordingReport) -> Plot:
     return Plot("Deviation", fig, note)
 
 
+def _nice_group(width_hz: float, bin_hz: float) -> int:
+    """Bins per display bin so a display bin is 1, 2 or 5 times a power of ten Hz."""
+    if not width_hz > bin_hz:
+        return 1
+    p = 10.0 ** math.floor(math.log10(width_hz))
+    nice = min((m * p for m in (1, 2, 5, 10)), key=lambda w: abs(w - width_hz))
+    return max(1, int(round(nice / bin_hz)))
+
+
 def _history_series(rec: RecordingReport):
+    """(t_s, frequency_hz, sigma_hz, what) of the full gates.
+
+    FM modes use the RF when it is known, so drift in ppm and the fractional Allan
+    figures refer to the oscillator's own frequency, not to the beat note.
+    """
     gates = _full_gates(rec)
     fm_mode = rec.mode != "audio"
+    use_rf = fm_mode and any(r.rf_hz is not None for r in gates)
     t, f, u = [], [], []
     for r in gates:
-        val = r.carrier_hz if fm_mode else r.frequency_hz
-        sig = r.carrier_uncertainty_hz if fm_mode else r.uncertainty_hz
+        if use_rf:
+            val, sig = r.rf_hz, r.carrier_uncertainty_hz
+        elif fm_mode:
+            val, sig = r.carrier_hz, r.carrier_uncertainty_hz
+        else:
+            val, sig = r.frequency_hz, r.uncertainty_hz
         if val is not None and math.isfinite(val):
             t.append(r.t_s + 0.5 * r.gate_s)
             f.append(val)
             u.append(sig if sig is not None and math.isfinite(sig) else 0.0)
-    return np.array(t), np.array(f), np.array(u)
+    if use_rf:
+        what = "RF"
+    elif rec.mode == "beat":
+        what = "carrier (beat note; give --dial for the RF)"
+    elif rec.mode == "iq":
+        what = "carrier offset from the I/Q centre (give --dial for the RF)"
+    else:
+        what = "tone frequency"
+    return np.array(t), np.array(f), np.array(u), what
 
 
 def plot_history(rec: RecordingReport) -> Plot:
     """Gate-by-gate frequency with 1-sigma bars and the linear drift fit."""
     from dsp.stability import fit_drift
 
-    t, f, u = _history_series(rec)
+    t, f, u, what = _history_series(rec)
     if t.size < 2:
         return Plot("Frequency history", None, f"{t.size} gate(s) with a frequency: no history")
-    what = (
-        "carrier (beat note)"
-        if rec.mode == "beat"
-        else ("carrier offset from the I/Q centre" if rec.mode == "iq" else "tone frequency")
-    )
     ref = float(np.mean(f))
     fig, (ax,) = _new_figure()
     ax.errorbar(
@@ -757,10 +786,25 @@ def plot_history(rec: RecordingReport) -> Plot:
             lw=1.4,
             label=f"linear drift {d.hz_per_s * 60:+.4g} Hz/min ({d.ppm_per_min:+.3g} ppm/min)",
         )
+        if t.size >= 4:
+            # the parabola from the same fit: f = f_mid + b (t - tm) + c (t - tm)^2
+            b_mid = 0.5 * (d.quadratic_start_hz_per_s + d.quadratic_end_hz_per_s)
+            c = d.quadratic_hz_per_s2
+            shape = b_mid * (t - tm) + c * (t - tm) ** 2
+            ax.plot(
+                t,
+                shape + float(np.mean(f - shape)) - ref,
+                color=_SIDE,
+                lw=1.2,
+                ls="--",
+                label=f"quadratic fit, rate {d.quadratic_start_hz_per_s * 60:+.4g} to "
+                f"{d.quadratic_end_hz_per_s * 60:+.4g} Hz/min",
+            )
     else:
         note = "drift fit needs three gates"
     ax.set_xlabel("time (s)")
-    ax.set_ylabel(f"frequency − {ref:.6f} Hz (Hz)")
+    short = "RF" if what == "RF" else "frequency"
+    ax.set_ylabel(f"{short} − {ref:.6f} Hz (Hz)")
     ax.set_title(f"Frequency history: {what}", fontsize=10, color=_INK)
     ax.legend(fontsize=8, loc="best", framealpha=0.9)
     return Plot("Frequency history", fig, note)
@@ -770,7 +814,7 @@ def stability_of(rec: RecordingReport):
     """(StabilityResult or None, note) of the gate readings (dsp.stability)."""
     from dsp.stability import analyze_stability
 
-    t, f, _u = _history_series(rec)
+    t, f, _u, what = _history_series(rec)
     if t.size < MIN_ALLAN_READINGS:
         return None, (
             f"record too short for an Allan plot: {t.size} full-gate readings, at least "
@@ -781,6 +825,8 @@ def stability_of(rec: RecordingReport):
         res = analyze_stability(t, f, tau0_s=rec.settings.gate_s)
     except ValueError as exc:
         return None, f"no Allan plot: {exc}"
+    if rec.mode != "audio" and what != "RF":
+        return res, f"fractional figures relative to the {what}, not to the oscillator"
     return res, ""
 
 
@@ -824,6 +870,11 @@ def plot_allan(rec: RecordingReport) -> Plot:
         )
     ax.set_xscale("log")
     ax.set_yscale("log")
+    # label the measured taus themselves; matplotlib's 6x10^-1 style is hard to read
+    ax.set_xticks(tau, [f"{x:g}" for x in tau])
+    ax.xaxis.set_minor_formatter(matplotlib_null_formatter())
+    if tau.size > 1:
+        ax.set_xlim(tau[0] / 1.4, tau[-1] * 1.4)
     ax.set_xlabel("averaging time τ (s)")
     ax.set_ylabel("σ_y(τ) (fractional frequency)")
     ax.set_title(
@@ -833,7 +884,13 @@ def plot_allan(rec: RecordingReport) -> Plot:
     )
     ax.grid(True, which="both", color="#d9d6cf", lw=0.5)
     ax.legend(fontsize=8, loc="best", framealpha=0.9)
-    return Plot("Allan deviation", fig, "; ".join(res.warnings))
+    return Plot("Allan deviation", fig, "; ".join([*res.warnings, note] if note else res.warnings))
+
+
+def matplotlib_null_formatter():
+    from matplotlib.ticker import NullFormatter
+
+    return NullFormatter()
 
 
 def make_plots(rec: RecordingReport) -> list[Plot]:
