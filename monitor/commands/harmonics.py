@@ -156,8 +156,15 @@ def _measured_fundamental(path: str) -> float:
 
     if not Path(path).exists():
         raise InputError(f"{path}: no such file")
-    summary = analyze_file(path).summary
-    f0 = getattr(summary, "frequency_hz", None)
+    from monitor.engine import AnalysisSettings
+    from monitor.sources import recorded_mode
+
+    # A beat-note or I/Q recording with its dial (sidecar or SigMF centre) and harmonic
+    # gives the oscillator's fundamental; otherwise the tone counted in the recording is it.
+    mode = recorded_mode(path) or "audio"
+    analysis = analyze_file(path, settings=AnalysisSettings(mode=mode))
+    fm = analysis.extra.get("fm") or {}
+    f0 = fm.get("fundamental_hz") or getattr(analysis.summary, "frequency_hz", None)
     if f0 is None or not f0 > 0:
         raise InputError(f"{path}: no tone found to take as the fundamental")
     return float(f0)
