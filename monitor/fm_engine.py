@@ -159,6 +159,23 @@ def rf_from_carrier(meta: StreamMeta, carrier_hz: float) -> float | None:
     return meta.dial_hz + carrier_hz if meta.sideband == "upper" else meta.dial_hz - carrier_hz
 
 
+def _gate_power(x: np.ndarray, fs_hz: float, kind: str):
+    """Hann-windowed power spectrum of a gate; for real input DC and sub-audio (< 20 Hz,
+    where hum and offsets live) are zeroed, since they are never the carrier."""
+    n = x.shape[0]
+    w = np.hanning(n)
+    if kind == "complex":
+        spec = np.fft.fftshift(np.fft.fft((x - x.mean()) * w))
+        freqs = np.fft.fftshift(np.fft.fftfreq(n, 1.0 / fs_hz))
+    else:
+        spec = np.fft.rfft((x - x.mean()) * w)
+        freqs = np.fft.rfftfreq(n, 1.0 / fs_hz)
+    p = spec.real**2 + spec.imag**2
+    if kind == "real":
+        p[freqs < 20.0] = 0.0
+    return freqs, p
+
+
 def find_carrier(
     x: np.ndarray, fs_hz: float, *, kind: str, near_hz: float | None = None
 ) -> tuple[float, float, float]:
@@ -172,15 +189,7 @@ def find_carrier(
     of its strongest peak: (centre_hz, width_hz, snr_db).
     """
     n = x.shape[0]
-    w = np.hanning(n)
-    if kind == "complex":
-        spec = np.fft.fftshift(np.fft.fft((x - x.mean()) * w))
-        freqs = np.fft.fftshift(np.fft.fftfreq(n, 1.0 / fs_hz))
-    else:
-        spec = np.fft.rfft((x - x.mean()) * w)
-        freqs = np.fft.rfftfreq(n, 1.0 / fs_hz)
-        spec[: max(1, int(20.0 / (fs_hz / n)))] = 0  # DC and sub-audio are not a carrier
-    p = spec.real**2 + spec.imag**2
+    freqs, p = _gate_power(x, fs_hz, kind)
     floor = float(np.median(p)) + 1e-300
     inner = p[1:-1]
     is_peak = (inner >= p[:-2]) & (inner > p[2:])
@@ -224,18 +233,8 @@ def find_carrier(
 
 def power_fraction_within(x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, hi_hz: float):
     """Share of the signal's power (above the noise floor) between lo_hz and hi_hz."""
-    n = x.shape[0]
-    w = np.hanning(n)
-    if kind == "complex":
-        spec = np.fft.fftshift(np.fft.fft((x - x.mean()) * w))
-        freqs = np.fft.fftshift(np.fft.fftfreq(n, 1.0 / fs_hz))
-    else:
-        spec = np.fft.rfft((x - x.mean()) * w)
-        freqs = np.fft.rfftfreq(n, 1.0 / fs_hz)
-    p = spec.real**2 + spec.imag**2
+    freqs, p = _gate_power(x, fs_hz, kind)
     p = np.maximum(p - np.median(p), 0.0)  # the noise floor is not signal
-    if kind == "real":
-        p[freqs < 20.0] = 0.0
     total = float(p.sum())
     if total <= 0:
         return 1.0
