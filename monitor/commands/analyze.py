@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from dsp.filters import FILTERS
 from monitor.blocks import MODES
 from monitor.errors import InputError
 from monitor.units import frequency_arg, positive_frequency_arg
@@ -20,16 +21,7 @@ examples:
   swingmeter analyze ref-1khz.wav --profile bench-a
 """
 
-FILTER_CHOICES = (
-    "none",
-    "300-3000",
-    "20-15k",
-    "a-weight",
-    "psophometric",
-    "c-message",
-    "deemph-50us",
-    "deemph-75us",
-)
+FILTER_CHOICES = FILTERS
 
 
 def add_input_options(p: argparse.ArgumentParser) -> None:
