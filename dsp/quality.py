@@ -208,13 +208,13 @@ class QualityFigures:
         Frequency of that spur (to a spectrum bin); nan if the record was too short to
         search (a warning is issued then).
     fundamental_dbfs : float
-        Level of the fundamental, AES17 dBFS.
+        Level of the fundamental, AES17 dBFS (-inf if it is exactly zero).
     hum_hz : float or None
         The mains frequency fitted (50 or 60), None if hum was not measured.
     hum_db : float
         Hum power relative to the fundamental power (dB); -inf if not measured.
     hum_dbfs : float
-        Hum level, AES17 dBFS; -inf if not measured.
+        Hum level, AES17 dBFS; -inf if not measured or exactly zero.
     fundamental_power, harmonic_power, noise_power, hum_power, spur_power, dc_power,
     total_power : float
         S, D, noise, hum, largest spur, DC and mean square of the whole input.
@@ -394,7 +394,7 @@ def _largest_spur(x: np.ndarray, fs_hz: float, f0_hz: float, dc: float) -> tuple
     pw[: h + 1] = -1.0
     kp = int(np.argmax(pw))
     if pw[kp] < 0:  # nothing outside the excluded regions (very short record)
-        return 0.0, math.nan
+        return -1.0, math.nan
     # The spur's own lobe, without what belongs to DC or the fundamental.
     pw[: h + 1] = saved_dc
     pw[lo0:hi0] = saved
@@ -439,7 +439,7 @@ def _figures_from_powers(
     else:
         hum = max(hum_power, floor)
         hum_db = _db(hum, s)
-        hum_dbfs = _db(hum, 0.5)
+        hum_dbfs = _db(hum_power, 0.5) if hum_power > 0 else -math.inf
     return QualityFigures(
         fundamental_hz=fundamental_hz,
         fs_hz=fs_hz,
@@ -452,7 +452,7 @@ def _figures_from_powers(
         enob_bits=(ratio_db - 1.76) / 6.02,
         sfdr_db=_db(s, max(spur_power, floor)),
         spur_hz=spur_hz,
-        fundamental_dbfs=_db(s, 0.5),
+        fundamental_dbfs=_db(fundamental_power, 0.5) if fundamental_power > 0 else -math.inf,
         hum_hz=hum_hz,
         hum_db=hum_db,
         hum_dbfs=hum_dbfs,
@@ -630,9 +630,15 @@ def measure_quality(
     noise_power = (max(resid, 0.0) + other_energy) / max(n - n_par, 1)
 
     spur_power, spur_hz = _largest_spur(a, fs, f0, float(b[0]))
-    if spur_power == 0.0:
+    if spur_power < 0.0:
+        spur_power = 0.0
         warnings.warn(
             f"x has only {n} samples: too short to search for spurs; sfdr_db is a floor",
+            stacklevel=2,
+        )
+    if energy[0] <= 0.0 or xx <= float(b[0]) ** 2 * n * (1.0 + 1e-12):
+        warnings.warn(
+            "x holds no AC signal (constant or silent): the ratio figures are meaningless",
             stacklevel=2,
         )
     return _figures_from_powers(

@@ -294,6 +294,21 @@ class TestMeasureQuality:
         assert q.hum_power == pytest.approx(sum(power[len(lines) :]), rel=1e-6, abs=1e-15)
         assert q.noise_power == pytest.approx(noise, rel=1e-3)
 
+    def test_silence_and_tiny_records_warn_but_never_nan(self):
+        import dataclasses
+
+        for x, match in (
+            (np.zeros(4800), "no AC signal"),
+            (np.full(4800, 0.25), "no AC signal"),
+            (tone(1000, 3), "too short"),
+        ):
+            with pytest.warns(UserWarning, match=match):
+                q = measure_quality(x, FS, fundamental_hz=1000)
+            numbers = [v for k, v in dataclasses.asdict(q).items() if k != "spur_hz"]
+            assert not any(isinstance(v, float) and math.isnan(v) for v in numbers)
+            if not x.any():
+                assert q.fundamental_dbfs == -math.inf
+
     def test_raises(self):
         x = tone(1000, 480)
         with pytest.raises(ValueError, match="fs_hz=0"):
