@@ -9,9 +9,13 @@ Kaiser-windowed spectrum of (at most) the first 16384 samples.
 Speed: the engine calls `measure_quality` once per gate, so trigonometric functions are
 never evaluated over the full record. The record is folded into an (R, M) matrix, n = rM + m,
 and since exp(-j w n) = exp(-j w r M) exp(-j w m) every projection is one BLAS product of
-that matrix with the (M, K) table of exp(-j w m) followed by an R-long sum. The Gram matrix
-of the fit has closed-form entries (Dirichlet kernels), so the normal equations are built
-without touching the samples again.
+that matrix with the (M, K) table of exp(-j w m) followed by an R-long sum. The harmonics'
+tables are running powers of their base line's, so only about 2 sqrt(N) trig values per base
+frequency (fundamental, 50 Hz, 60 Hz) are computed. The Gram matrix of the fit has
+closed-form entries (Dirichlet kernels), so the normal equations are built without touching
+the samples again. Only above about 110 dB SINAD, where the residual energy
+||x||^2 - b.p would lose digits, is the fitted waveform rebuilt (from the same tables) and
+subtracted.
 """
 
 from __future__ import annotations
