@@ -475,10 +475,13 @@ def summary_rows(rec: RecordingReport) -> list[tuple[str, str]]:
     rows.extend(render.fm_rows(s))
     if s["mode"] != "audio" and "drift" in out:
         rows.append((out["drift"].label, out["drift"].text))
-    for key in ("dev_rms", "tone_deviation", "mod_index"):
-        q = out.get(key)
-        if q is not None and q.sigma is not None:
-            rows.append((q.label + " (Type A)", q.text))
+    typea = [
+        f"{out[k].label} {out[k].text}"
+        for k in ("dev_rms", "tone_deviation", "mod_index")
+        if k in out and out[k].sigma is not None
+    ]
+    if typea:
+        rows.append(("gate-averaged, 1σ (Type A)", "; ".join(typea)))
     dev = s.get("deviation")
     if isinstance(dev, dict):
         if not dev.get("calibrated"):
@@ -618,12 +621,27 @@ def plot_spectrum(rec: RecordingReport) -> Plot:
     fig, (ax,) = _new_figure()
     markers = list(v.markers_hz)
     if s["mode"] == "audio":
-        sel = f > 0
-        ax.semilogx(f[sel], db[sel], color=_DATA, lw=0.8, label="spectrum")
+        # linear, up to the tone's 12th harmonic: the display bins are tens of Hz wide, so
+        # a log axis would smear hum and low tones into triangles
+        hi = float(f[-1])
         if markers:
-            ax.axvline(markers[0], color=_FIT, lw=1.0, ls="--", label="measured tone")
-        ax.set_xlabel("frequency (Hz)")
-        ax.set_xlim(max(10.0, f[sel][0]), f[-1])
+            hi = min(hi, max(12.0 * markers[0], 4000.0))
+        scale, unit = _freq_scale(hi)
+        sel = f <= hi
+        ax.plot(f[sel] / scale, db[sel], color=_DATA, lw=0.8, label="spectrum")
+        if markers:
+            f0 = markers[0]
+            ax.axvline(f0 / scale, color=_FIT, lw=1.0, ls="--", alpha=0.85, label="measured tone")
+            for k in range(2, int(hi // f0) + 1):
+                ax.axvline(
+                    k * f0 / scale,
+                    color=_SIDE,
+                    lw=0.7,
+                    ls=":",
+                    label="harmonics k·f" if k == 2 else None,
+                )
+        ax.set_xlabel(f"frequency ({unit})")
+        ax.set_xlim(0, hi / scale)
     else:
         lo_hi = None
         if fm and fm.get("occupied_low_hz") is not None:
@@ -645,7 +663,7 @@ def plot_spectrum(rec: RecordingReport) -> Plot:
             )
         ax.plot(f[sel] / scale, db[sel], color=_DATA, lw=0.8, label="spectrum")
         if markers:
-            ax.axvline(markers[0] / scale, color=_FIT, lw=1.2, ls="--", label="carrier")
+            ax.axvline(markers[0] / scale, color=_FIT, lw=1.0, ls="--", alpha=0.85, label="carrier")
         for i, m in enumerate(markers[1:]):
             ax.axvline(
                 m / scale, color=_SIDE, lw=0.8, ls=":", label="sidebands k·fm" if i == 0 else None
@@ -653,13 +671,15 @@ def plot_spectrum(rec: RecordingReport) -> Plot:
         ax.set_xlim(lo / scale, hi / scale)
         where = "offset from the I/Q centre" if s["mode"] == "iq" else "beat-note frequency"
         ax.set_xlabel(f"{where} ({unit})")
-    top = float(np.max(db))
-    # the floor from a low percentile: single deep notches of the noise waste the axis
-    floor = float(np.percentile(db[np.isfinite(db)], 2))
-    ax.set_ylim(max(floor, top - 130.0) - 10, top + 8)
+    shown = db[sel & np.isfinite(db)]
+    top = float(np.max(shown))
+    # the floor from a low percentile of what is shown: deep notches waste the axis; room
+    # below the floor keeps the legend off the lines
+    floor = max(float(np.percentile(shown, 2)), top - 130.0)
+    ax.set_ylim(floor - 30.0, top + 8)
     ax.set_ylabel("power per bin (dB re full scale)")
     ax.set_title(f"Spectrum of the gate at t = {v.t_s:g} s — {name}", fontsize=10, color=_INK)
-    ax.legend(fontsize=8, loc="upper right", framealpha=0.9)
+    ax.legend(fontsize=8, loc="lower center", ncol=4, framealpha=0.9)
     return Plot("Spectrum", fig)
 
 
@@ -828,7 +848,9 @@ def stability_of(rec: RecordingReport):
             "shorter gate"
         )
     try:
-        res = analyze_stability(t, f, tau0_s=rec.settings.gate_s)
+        # the warm-up window only shapes the warm-up figure; keep it inside short records
+        window = min(60.0, 0.25 * float(t[-1] - t[0]))
+        res = analyze_stability(t, f, tau0_s=rec.settings.gate_s, settle_window_s=window)
     except ValueError as exc:
         return None, f"no Allan plot: {exc}"
     if rec.mode != "audio" and what != "RF":
@@ -1001,7 +1023,9 @@ def _band_html(bc: BandCheck) -> str:
                 ns += f", … ({h.count} in all)"
             rows.append((h.band, f"{h.lo_hz / 1e6:.4f}–{h.hi_hz / 1e6:.4f} MHz", ns, h.source))
         parts.append(_table(rows, ("band", "edges", "harmonic numbers", "source")))
-    if not bc.rf_hits and not bc.harmonic_hits:
+    if not bc.rf_hits:
+        parts.append("<p>The measured RF signal itself touches no protected band.</p>")
+    if not bc.harmonic_hits:
         parts.append("<p>No harmonic up to the limit touches a protected band.</p>")
     parts.append(f'<p class="note">{_e(bc.note)}</p>')
     return "\n".join(parts)
