@@ -25,6 +25,8 @@ from collections import deque
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field, fields, replace
 
+import numpy as np
+
 from monitor.blocks import Block, StreamMeta
 from monitor.engine import AnalysisSettings, Engine, GateView, Reading, Summary
 
@@ -243,7 +245,7 @@ class LiveSession:
         source: Iterable[Block],
         settings: AnalysisSettings | None = None,
         *,
-        queue_blocks: int = 64,
+        queue_blocks: int = 256,
         drop_when_full: bool = True,
         keep_readings: int = 2048,
         views: bool = False,
@@ -278,6 +280,7 @@ class LiveSession:
         self._dropped_frames = 0
         self._queue_peak = 0
         self._last_block_s = time.monotonic()
+        self._arrived = 0.0  # arrival time of the block the worker is feeding
         self._recorder = None
         self._rec_lock = threading.Lock()
         self.error: BaseException | None = None
@@ -289,9 +292,13 @@ class LiveSession:
     # -- life cycle -----------------------------------------------------------------------
 
     def start(self) -> LiveSession:
-        """Start the source and worker threads."""
+        """Make the engine (when the stream's metadata is known) and start the source and
+        worker threads."""
         if self._threads:
             return self
+        if self.meta is not None and self.engine is None:
+            self._warm_up(self.meta)
+            self.engine = self._make_engine(self.meta)
         self._last_block_s = time.monotonic()
         for target, name in ((self._source_loop, "source"), (self._worker_loop, "engine")):
             t = threading.Thread(target=target, name=f"swingmeter-{name}", daemon=True)
@@ -441,7 +448,34 @@ class LiveSession:
                     if self._stop.is_set():
                         break
 
-    def _emit_reading(self, r: Reading, arrived: float) -> None:
+    def _make_engine(self, meta: StreamMeta) -> Engine:
+        settings = self.settings or AnalysisSettings(mode=meta.mode)
+        return Engine(
+            meta,
+            settings,
+            on_reading=self._emit_reading,
+            on_view=self._emit_view if self.views else None,
+            keep_readings=False,
+        )
+
+    def _warm_up(self, meta: StreamMeta) -> None:
+        """Measure one synthetic gate with a throwaway engine, so that lazy imports and
+        first-time set-up (seconds on a slow machine) happen before the input runs, not
+        while its blocks pile up. Errors are left for the real run to report."""
+        settings = self.settings or AnalysisSettings(mode=meta.mode)
+        try:
+            warm = Engine(meta.with_(source="warm-up"), settings, keep_readings=False)
+            if self.views:
+                warm.on_view = lambda _v: None
+            n = warm.gate_n
+            w = 2 * np.pi * 0.1 * np.arange(n)  # a tone at a tenth of the sample rate
+            x = 0.1 * (np.exp(1j * w) if meta.mode == "iq" else np.cos(w))
+            warm.feed(Block(x, 0, warm.meta))
+        except Exception:
+            pass
+
+    def _emit_reading(self, r: Reading) -> None:
+        arrived = self._arrived
         with self._lock:
             self._seq += 1
             self._readings.append(LiveReading(self._seq, r, arrived, time.monotonic()))
@@ -454,7 +488,6 @@ class LiveSession:
             self._views.append((self._view_seq, v))
 
     def _worker_loop(self) -> None:
-        arrived = [0.0]
         try:
             while True:
                 try:
@@ -465,16 +498,9 @@ class LiveSession:
                     continue
                 if item is _END or self._stop.is_set():
                     break
-                block, arrived[0] = item
+                block, self._arrived = item
                 if self.engine is None:
-                    settings = self.settings or AnalysisSettings(mode=block.meta.mode)
-                    self.engine = Engine(
-                        block.meta,
-                        settings,
-                        on_reading=lambda r: self._emit_reading(r, arrived[0]),
-                        on_view=self._emit_view if self.views else None,
-                        keep_readings=False,
-                    )
+                    self.engine = self._make_engine(block.meta)
                 self.engine.feed(block)
             if self.engine is not None and not self._stop.is_set():
                 self.engine.finish()

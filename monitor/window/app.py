@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 import time
 from collections import deque
+from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
@@ -82,10 +83,21 @@ class LiveWindow(QtWidgets.QMainWindow):
         Write the controls to `monitor.settings` when they change and on close.
     log_path : str or None
         Also log readings to this CSV file (as `live --no-window --log`).
+    session_factory : callable or None
+        Starts a session for a config (default: `monitor.live.start_session` with gate
+        views); benchmarks pass their own sources through it.
     """
 
-    def __init__(self, config: LiveConfig, *, save_settings: bool = True, log_path=None):
+    def __init__(
+        self,
+        config: LiveConfig,
+        *,
+        save_settings: bool = True,
+        log_path=None,
+        session_factory: Callable[[LiveConfig], LiveSession] | None = None,
+    ):
         super().__init__()
+        self._session_factory = session_factory or (lambda c: start_session(c, views=True))
         self.setWindowTitle("swingmeter live")
         self.config = config
         self.save_settings = save_settings
@@ -100,6 +112,7 @@ class LiveWindow(QtWidgets.QMainWindow):
         self._hist_f = np.zeros(HISTORY_POINTS)
         self._hist_n = 0
         self._hist_ref: float | None = None
+        self._history_dirty = False
         self._wf = np.full((WATERFALL_ROWS, WATERFALL_COLS), WATERFALL_LEVELS_DB[0], np.float32)
         self._wf_span: tuple[float, float] | None = None
         self._error_text = ""
@@ -194,6 +207,18 @@ class LiveWindow(QtWidgets.QMainWindow):
         )
         self.history_curve.setClipToView(True)
         self.history_curve.setDownsampling(auto=True, method="peak")
+        for plot in (self.spectrum_plot, self.waterfall_plot, self.wave_plot, self.history_plot):
+            for name in ("left", "bottom"):
+                # Axis text is the dearest part of a frame; redraw it only when the ticks
+                # change, not on every repaint of the plot beside it.
+                plot.getAxis(name).setCacheMode(
+                    QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache
+                )
+        self.spectrum_curve.setDownsampling(auto=True, method="peak")
+        self.spectrum_curve.setSkipFiniteCheck(True)
+        self.wave_curve.setSkipFiniteCheck(True)
+        self.wave_plot.enableAutoRange(axis="y", enable=False)
+        self._wave_span = 0.0
         plots.addWidget(self.spectrum_plot, 0, 0)
         plots.addWidget(self.waterfall_plot, 1, 0)
         plots.addWidget(self.wave_plot, 0, 1)
@@ -449,12 +474,13 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.hold.reset()
         self._hist_n = 0
         self._hist_ref = None
+        self._wave_span = 0.0
         self._wf[:] = WATERFALL_LEVELS_DB[0]
         self._wf_span = None
         self._error_text = ""
         self.pause_button.setChecked(False)
         try:
-            self.session = start_session(self.config, views=True)
+            self.session = self._session_factory(self.config)
         except (SwingmeterError, ValueError) as exc:
             self._error_text = str(exc)
         self._update_text()
@@ -555,7 +581,7 @@ class LiveWindow(QtWidgets.QMainWindow):
                     self.latencies.append(now - lr.arrived_s)
                 self._seq = new[-1].seq
                 self.latest = new[-1]
-                self._draw_history()
+                self._history_dirty = True
             views = s.views_since(self._vseq)
             if views:
                 self._vseq = views[-1][0]
@@ -565,6 +591,11 @@ class LiveWindow(QtWidgets.QMainWindow):
                 self.waterfall.setImage(self._wf, autoLevels=False)
         if self.frames % TEXT_EVERY_FRAMES == 0:
             self._update_text()
+            if self._history_dirty:
+                # the strip scrolls, so each redraw re-ticks its axis: a few times a
+                # second is enough for a trend
+                self._history_dirty = False
+                self._draw_history()
 
     def _add_history(self, r) -> None:
         f = ro.shown_frequency(r, harmonic=int(self.config.meta.get("harmonic", 1))).value_hz
@@ -618,6 +649,14 @@ class LiveWindow(QtWidgets.QMainWindow):
         else:
             self.span.hide()
         self.wave_curve.setData(v.waveform_s, v.waveform)
+        peak = float(np.max(np.abs(v.waveform))) if v.waveform.size else 0.0
+        if peak > self._wave_span or peak < 0.5 * self._wave_span:
+            # a new range only when the signal outgrows it or shrinks to half: steady
+            # ticks, and no re-ticking of the axis on every gate
+            self._wave_span = _nice_ceiling(1.1 * peak) if peak > 0 else 1.0
+            self.wave_plot.setYRange(-self._wave_span, self._wave_span, padding=0)
+        if v.waveform_s.size:
+            self.wave_plot.setXRange(0.0, float(v.waveform_s[-1]), padding=0)
         if v.waveform_unit == "Hz":
             self.wave_plot.setLabel("left", "deviation", units="Hz")
         else:
@@ -727,6 +766,15 @@ class LiveWindow(QtWidgets.QMainWindow):
     def closeEvent(self, event) -> None:
         self.shutdown()
         super().closeEvent(event)
+
+
+def _nice_ceiling(x: float) -> float:
+    """The smallest 1, 2 or 5 times a power of ten that is >= x (x > 0)."""
+    p = 10.0 ** math.floor(math.log10(x))
+    for m in (1.0, 2.0, 5.0, 10.0):
+        if m * p >= x:
+            return m * p
+    return 10.0 * p
 
 
 def _frequency_text(hz: float | None) -> str:

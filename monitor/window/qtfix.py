@@ -1,10 +1,11 @@
 """A guard against a reference-count bug in some PySide6 releases on Python < 3.12.
 
-With PySide6 6.12.0 on Python 3.11, every `SignalInstance.emit()` gives back `True`
-without taking a reference to it, so each emitted signal (pyqtgraph emits several per
-`setData`) removes one reference from `True`. After a few hundred emits the interpreter
-aborts with "bool_dealloc: deallocating True or False". From Python 3.12 on, `True` is
-immortal and the bug is harmless.
+With PySide6 6.12.0 on Python 3.11 (6.11.3 is fine), every `SignalInstance.emit()` gives
+back `True` without taking a reference to it, so each emitted signal (pyqtgraph emits
+several per `setData`) removes one reference from `True`; calls into Python overrides of
+Qt virtuals do the same to `None`. After a few hundred of them the interpreter aborts
+with "bool_dealloc: deallocating True or False" (or "none_dealloc"). From Python 3.12 on
+these objects are immortal and the bug is harmless.
 
 `BoolRefGuard` detects the bug once (a few emits, compare `sys.getrefcount(True)`) and
 then gives back the missing references with `Py_IncRef`: a headroom up front, and each
@@ -17,11 +18,15 @@ from __future__ import annotations
 import ctypes
 import sys
 
-HEADROOM = 200_000  # more emits than can happen between two frames
+HEADROOM = 100_000  # far more than can be lost between two frames
+# The same release also loses references to None (Python overrides of Qt virtuals such as
+# paint(), which return None) and, less often, to False.
+GUARDED = (True, False, None)
 
 
 class BoolRefGuard:
-    """Keep `True`'s reference count from falling to zero under a leaking PySide6.
+    """Keep the reference counts of True, False and None from falling to zero under a
+    leaking PySide6.
 
     Attributes
     ----------
@@ -32,30 +37,36 @@ class BoolRefGuard:
     def __init__(self) -> None:
         self.given = 0
         self.active = sys.version_info < (3, 12) and _emit_leaks_true()
+        self._target: dict[int, int] = {}
         if self.active:
-            self._give(HEADROOM)
-            self._target = sys.getrefcount(True)
+            for obj in GUARDED:
+                self._give(obj, HEADROOM)
+                self._target[id(obj)] = sys.getrefcount(obj)
 
-    def _give(self, n: int) -> None:
+    def _give(self, obj, n: int) -> None:
         incref = ctypes.pythonapi.Py_IncRef
-        obj = ctypes.py_object(True)
+        ref = ctypes.py_object(obj)
         for _ in range(n):
-            incref(obj)
+            incref(ref)
         self.given += n
 
     def top_up(self) -> int:
         """Replace the references lost since the last call; returns how many."""
         if not self.active:
             return 0
-        now = sys.getrefcount(True)
-        lost = self._target - now
-        if lost > 0:
-            # Ordinary releases look the same as lost references; giving those back too
-            # is harmless (True is never freed anyway), so the target only ratchets up.
-            self._give(lost)
-        else:
-            self._target = now
-        return max(lost, 0)
+        total = 0
+        for obj in GUARDED:
+            now = sys.getrefcount(obj)
+            lost = self._target[id(obj)] - now
+            if lost > 0:
+                # Ordinary releases look the same as lost references; giving those back
+                # too is harmless (these objects are never freed), so the target only
+                # ratchets up.
+                self._give(obj, lost)
+                total += lost
+            else:
+                self._target[id(obj)] = now
+        return total
 
 
 def _emit_leaks_true() -> bool:
