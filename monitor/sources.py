@@ -15,6 +15,7 @@ import itertools
 import json
 import math
 import os
+import warnings
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -309,11 +310,15 @@ class SigMFSource(_BlockReader):
         try:
             from sigmf import sigmffile
 
-            self._f = sigmffile.fromfile(meta_path, skip_checksum=True)
+            with warnings.catch_warnings(record=True) as said:
+                warnings.simplefilter("always")
+                self._f = sigmffile.fromfile(meta_path, skip_checksum=True)
         except Exception as exc:  # sigmf raises many types for broken recordings
             raise InputError(
                 f"{self.path}: not a readable SigMF recording ({type(exc).__name__}: {exc})"
             ) from None
+        for w in said:  # sigmf's doubts about the recording are ours to report
+            self._warn(f"SigMF: {w.message}")
         if not hasattr(self._f, "read_samples"):
             raise InputError(f"{self.path}: is a SigMF collection, not one recording")
         try:
@@ -413,12 +418,10 @@ class SigMFSource(_BlockReader):
                 return
             if self.mode != "iq" and np.iscomplexobj(data):
                 raise InputError(f"{self.path}: the data is complex; use --mode iq")
-            if self.mode == "iq":
-                data = data.astype(np.complex128)
-                if self.swap_iq:
-                    data = data.imag + 1j * data.real
-            else:
-                data = data.astype(np.float64)
+            with np.errstate(invalid="ignore", over="ignore"):  # non-finite: handled later
+                data = data.astype(np.complex128 if self.mode == "iq" else np.float64)
+            if self.mode == "iq" and self.swap_iq:
+                data = data.imag + 1j * data.real
             yield data
             pos += data.shape[0]
 
@@ -486,7 +489,10 @@ def _iq_like(data: np.ndarray, hilbert) -> bool:
         return False
     if abs(float(np.dot(i, q))) > 0.3 * math.sqrt(pi * pq):
         return False
-    h = np.imag(hilbert(i))
+    from scipy.fft import next_fast_len
+
+    # a prime length (a short file) would make the FFT hundreds of times slower
+    h = np.imag(hilbert(i, N=next_fast_len(i.shape[0])))[: i.shape[0]]
     ph = float(np.dot(h, h))
     if not (math.isfinite(ph) and ph > 0):
         return False
