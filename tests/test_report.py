@@ -17,6 +17,7 @@ import os
 import re
 import shutil
 import subprocess
+import sys
 import tempfile
 from pathlib import Path
 
@@ -67,7 +68,7 @@ def _fm_wav(directory: Path, name: str, beta: float, seed: int, noise: float = 0
     expr = f"0.5*sin(2*PI*{CARRIER_HZ}*t+{beta}*sin(2*PI*{FM_TONE_HZ}*t))"
     subprocess.run(
         [_ffmpeg_exe(), "-hide_banner", "-loglevel", "error", "-y", "-f", "lavfi", "-i",
-         f"aevalsrc={expr}:s={FS}:d=5", "-c:a", "pcm_f32le", str(raw)],
+         f"aevalsrc={expr}:s={FS}:d=3", "-c:a", "pcm_f32le", str(raw)],
         check=True, capture_output=True,
     )  # fmt: skip
     x, fs = sf.read(raw, dtype="float64")
@@ -107,7 +108,7 @@ def fm_compare(work):
     res = {}
     for key, pair in (("different", (a, b)), ("same", (a, a2))):
         out = work / f"compare-{key}.html"
-        code, _, err = _run(["report", *pair, "--compare", "--mode", "beat", "--gate", "0.5",
+        code, _, err = _run(["report", *pair, "--compare", "--mode", "beat", "--gate", "0.25",
                              "-o", out])  # fmt: skip
         assert code == 0, err
         res[key] = out.read_text(encoding="utf-8")
@@ -183,14 +184,40 @@ class TestReportCommand:
         # a summary page plus seven plot pages
         assert len(re.findall(rb"/Type\s*/Page\b", data)) == 8
 
-    def test_escapes_text(self, work):
+    def test_escapes_text_and_shows_profile(self, work):
+        from monitor import profiles
+
+        profiles.update("bench-a", clock_ppm=12.5)
+        wav = DEMO / "rx-audio-1khz.wav"
         out = work / "escape.html"
         title = "<script>alert(1)</script> & trimmer"
-        code, _, err = _run(["report", DEMO / "rx-audio-1khz.wav", "--title", title, "-o", out])
+        code, _, err = _run(["report", wav, "--title", title, "--profile", "bench-a", "-o", out])
         assert code == 0, err
         text = out.read_text(encoding="utf-8")
         assert "<script>" not in text
         assert html.escape(title) in text
+        assert "<tr><td>clock_ppm</td><td>12.5</td></tr>" in text
+        # the profile's clock correction reaches the figures as in `analyze`
+        code, js, err = _run(["analyze", wav, "--profile", "bench-a", "--json"])
+        tone = json.loads(js)["tone"]
+        code, js, err = _run(["analyze", wav, "--json"])
+        plain = json.loads(js)["tone"]
+        # the clock correction multiplies frequencies by 1 + P*1e-6 (StreamMeta.clock_ppm)
+        assert tone["frequency_hz"] == pytest.approx(plain["frequency_hz"] * (1 + 12.5e-6))
+        fmt = format_with_uncertainty
+        assert html.escape(fmt(tone["frequency_hz"], tone["uncertainty_hz"])) in text
+        assert html.escape(fmt(plain["frequency_hz"], plain["uncertainty_hz"])) not in text
+
+    def test_missing_matplotlib(self, work, monkeypatch):
+        # an ImportError from matplotlib becomes one line and exit 2
+        monkeypatch.setitem(sys.modules, "matplotlib.backends.backend_agg", None)
+        code, _, err = _run(["report", DEMO / "rx-audio-1khz.wav", "-o", work / "none.html"])
+        assert code == 2
+        assert err.strip() == (
+            "swingmeter: error: report needs matplotlib, which is not installed: "
+            "pip install 'swingmeter[plot]'"
+        )
+        assert not (work / "none.html").exists()
 
     def test_raises(self, work, tmp_path):
         wav = DEMO / "rx-audio-1khz.wav"
