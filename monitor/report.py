@@ -148,18 +148,27 @@ def analyze_for_report(
     InputError
         A missing or unreadable recording, or one the engine cannot use.
     """
-    from monitor.engine import Analysis, Engine
-    from monitor.sources import open_source
-
     p = Path(path)
     if not p.exists():
         raise InputError(f"{path}: no such file")
     if p.is_dir():
         raise InputError(f"{path}: is a directory, not a recording")
-    kept: dict = {}
+    try:
+        return _analyze(str(path), settings, meta, channel, mix, swap_iq, profile, progress)
+    except InputError as exc:
+        if str(path) in str(exc):
+            raise
+        # the engine's messages do not always say which of several recordings failed
+        raise InputError(f"{path}: {exc}") from None
 
+
+def _analyze(path, settings, meta, channel, mix, swap_iq, profile, progress):
+    from monitor.engine import Analysis, Engine
+    from monitor.sources import open_source
+
+    kept: dict = {}
     with open_source(
-        str(path), mode=settings.mode, channel=channel, mix=mix, swap_iq=swap_iq, meta=meta
+        path, mode=settings.mode, channel=channel, mix=mix, swap_iq=swap_iq, meta=meta
     ) as src:
 
         def on_view(v):
@@ -178,7 +187,7 @@ def analyze_for_report(
             raise InputError(f"{path}: too short for one gate of {settings.gate_s:g} s")
         summary = engine.summary(extra_warnings=src.warnings)
         analysis = Analysis(src.meta, engine.readings, summary, engine.extra())
-    return RecordingReport(str(path), analysis, kept.get("view"), settings, profile)
+    return RecordingReport(path, analysis, kept.get("view"), settings, profile)
 
 
 # ---------------------------------------------------------------------------------------
@@ -311,10 +320,9 @@ def quantities(rec: RecordingReport) -> list[Quantity]:
         _q(out, "rf", "RF", fm.get("rf_hz"), "Hz", u)
         if n > 1:
             _q(out, "fundamental", "fundamental", fm.get("fundamental_hz"), "Hz", u / n)
-        if fm.get("rf_hz") is not None:
-            d = tone.get("drift_hz_per_s")
-            if d is not None:
-                _q(out, "drift", "carrier drift", d * 60.0, "Hz/min", fmt="+.4g")
+        d = tone.get("drift_hz_per_s")
+        if d is not None:
+            _q(out, "drift", "carrier drift", d * 60.0, "Hz/min", fmt="+.4g")
         _deviation_quantities(out, {**fm["deviation"], **fm}, gates, n)
         _q(
             out,
@@ -1255,7 +1263,7 @@ def write_pdf(
             for rec, pl in zip(recs, plots, strict=True):
                 for p in pl:
                     if p.figure is not None:
-                        p.figure.suptitle(Path(rec.path).name, fontsize=8, color=_GUIDE)
+                        p.figure.text(0.005, 0.008, Path(rec.path).name, fontsize=7, color=_GUIDE)
                         pdf.savefig(p.figure)
             info = pdf.infodict()
             info["Title"] = title

@@ -227,6 +227,13 @@ class TestReportCommand:
             (["report", tmp_path / "nothing.wav", "-o", tmp_path / "r.html"], "no such recording"),
             (["report", wav, "--compare", "-o", tmp_path / "r.html"], "exactly two"),
         ]
+        cases.append((["report", wav, "-o", tmp_path / "r.pdf"], "the report is HTML"))
+        noise = tmp_path / "noise-only.wav"
+        sf.write(noise, np.random.default_rng(7).normal(0.0, 0.1, FS), FS)
+        cases.append(
+            (["report", noise, "--mode", "beat", "-o", tmp_path / "r.html"],
+             r"noise-only\.wav: no carrier found")
+        )  # fmt: skip
         bad = tmp_path / "not-audio.wav"
         bad.write_text("this is not a recording\n")
         cases.append((["report", bad, "-o", tmp_path / "r.html"], "not-audio.wav"))

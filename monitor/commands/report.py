@@ -75,9 +75,11 @@ def run(args) -> int:
 
     report._matplotlib()  # say it is missing before any analysis
     out = report.check_output_path(args.output)
+    if out.suffix.lower() == ".pdf":
+        raise InputError(
+            f"{args.output}: the report is HTML; give -o NAME.html, and --pdf for a PDF beside it"
+        )
     pdf_path = out.with_suffix(".pdf") if args.pdf else None
-    if pdf_path is not None and pdf_path == out:
-        raise InputError(f"{args.output}: the HTML output must not end in .pdf with --pdf")
     if args.compare and len(args.files) != 2:
         raise InputError(f"--compare needs exactly two recordings, got {len(args.files)}")
     for path in args.files:
