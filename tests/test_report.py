@@ -313,3 +313,42 @@ class TestTypeAUncertainty:
 
     def test_too_few(self):
         assert report.type_a_uncertainty([1.0, 2.0, None]) is None
+
+
+class TestStabilityOf:
+    def test_against_allantools(self):
+        import allantools
+
+        from monitor.engine import AnalysisSettings
+
+        rec = report.analyze_for_report(
+            DEMO / "drifting-tone.wav", settings=AnalysisSettings(mode="audio", gate_s=1.0)
+        )
+        res, note = report.stability_of(rec)
+        assert res is not None and note == ""
+        f = np.array([r.frequency_hz for r in rec.analysis.readings if r.gate_s >= 1.0])
+        y = f / np.median(f) - 1.0
+        # allantools (reference library): overlapping ADEV of fractional frequency
+        out = allantools.oadev(y, rate=1.0, data_type="freq", taus=list(res.adev.taus_s))
+        dev = out[1]
+        np.testing.assert_allclose(res.adev.values, dev, rtol=1e-9)
+        plot = report.plot_allan(rec)
+        assert plot.figure is not None
+        assert report.png_bytes(plot.figure).startswith(PNG_MAGIC)
+
+    def test_too_short(self):
+        from monitor.engine import AnalysisSettings
+
+        rec = report.analyze_for_report(
+            DEMO / "rx-audio-1khz.wav", settings=AnalysisSettings(mode="audio", gate_s=1.0)
+        )
+        res, note = report.stability_of(rec)
+        assert res is None
+        assert note.startswith("record too short for an Allan plot: 4 full-gate readings")
+        assert report.plot_allan(rec).figure is None
+
+    def test_raises(self, tmp_path):
+        from monitor.engine import AnalysisSettings
+
+        with pytest.raises(report.InputError, match="no such file"):
+            report.analyze_for_report(tmp_path / "absent.wav", settings=AnalysisSettings())
