@@ -34,10 +34,10 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p = sub.add_parser(
         "report",
         help=HELP,
-        description="Analyse recordings as `analyze` does and write one self-contained "
-        "HTML report: summary with uncertainties, spectrum, deviation waveform and "
-        "histogram, frequency history with drift fit, Allan plot, harmonic and "
-        "protected-band check, metadata and bench profile.",
+        description="Analyse recordings as `analyze` does (same options) and write one\n"
+        "self-contained HTML report: the summary with uncertainties, the spectrum, the\n"
+        "deviation waveform and histogram, the frequency history with its drift fit, the\n"
+        "Allan plot, the harmonic and protected-band check, the metadata and bench profile.",
         epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
