@@ -908,7 +908,7 @@ def plot_allan(rec: RecordingReport) -> Plot:
     ax.set_yscale("log")
     # label the measured taus themselves; matplotlib's 6x10^-1 style is hard to read
     ax.set_xticks(tau, [f"{x:g}" for x in tau])
-    ax.xaxis.set_minor_formatter(matplotlib_null_formatter())
+    ax.xaxis.set_minor_formatter(_null_formatter())
     if tau.size > 1:
         ax.set_xlim(tau[0] / 1.4, tau[-1] * 1.4)
     ax.set_xlabel("averaging time τ (s)")
@@ -923,7 +923,7 @@ def plot_allan(rec: RecordingReport) -> Plot:
     return Plot("Allan deviation", fig, "; ".join([*res.warnings, note] if note else res.warnings))
 
 
-def matplotlib_null_formatter():
+def _null_formatter():
     from matplotlib.ticker import NullFormatter
 
     return NullFormatter()
