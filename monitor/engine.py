@@ -667,9 +667,10 @@ def run(
     *,
     progress: Callable[[int, int | None], None] | None = None,
     on_reading: Callable[[Reading], None] | None = None,
+    on_view: Callable[[GateView], None] | None = None,
 ) -> Analysis:
     """Run every block of `source` through one engine."""
-    engine = Engine(source.meta, settings, on_reading=on_reading)
+    engine = Engine(source.meta, settings, on_reading=on_reading, on_view=on_view)
     for block in source:
         engine.feed(block)
         if progress is not None:
@@ -691,8 +692,12 @@ def analyze_file(
     swap_iq: bool = False,
     meta: dict | None = None,
     progress: Callable[[int, int | None], None] | None = None,
+    on_view: Callable[[GateView], None] | None = None,
 ) -> Analysis:
-    """Analyse one recording (WAV/RF64/W64/SigMF) and return readings and summary."""
+    """Analyse one recording (WAV/RF64/W64/SigMF) and return readings and summary.
+
+    `on_view` receives each gate's GateView (spectrum, markers, waveform) for displays
+    and reports; without it no view is computed."""
     from monitor.sources import open_source
 
     if settings is None:
@@ -708,4 +713,4 @@ def analyze_file(
         swap_iq=swap_iq,
         meta=fields_,
     ) as src:
-        return run(src, settings, progress=progress)
+        return run(src, settings, progress=progress, on_view=on_view)
