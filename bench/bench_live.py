@@ -28,9 +28,13 @@ import threading
 import time
 from pathlib import Path
 
-import numpy as np
-
+# Single-threaded BLAS, as `monitor` sets for the command line (its many small products
+# are slowest on a pool of spinning threads); it must be set before numpy is imported.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+import numpy as np  # noqa: E402
 
 from monitor.blocks import Block, StreamMeta  # noqa: E402
 from monitor.engine import AnalysisSettings  # noqa: E402

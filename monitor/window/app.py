@@ -30,6 +30,7 @@ from monitor.window import readouts as ro
 
 FRAME_MS = 50  # 20 frames/s
 TEXT_EVERY_FRAMES = 4  # text 5 times a second
+HISTORY_EVERY_FRAMES = 8  # the history strip (a trend) 2.5 times a second
 HISTORY_POINTS = 3600
 WATERFALL_ROWS = 60
 WATERFALL_COLS = 512
@@ -219,6 +220,8 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.wave_curve.setSkipFiniteCheck(True)
         self.wave_plot.enableAutoRange(axis="y", enable=False)
         self._wave_span = 0.0
+        self._wave_unit = ""
+        self._wave_len = 0.0
         plots.addWidget(self.spectrum_plot, 0, 0)
         plots.addWidget(self.waterfall_plot, 1, 0)
         plots.addWidget(self.wave_plot, 0, 1)
@@ -475,6 +478,8 @@ class LiveWindow(QtWidgets.QMainWindow):
         self._hist_n = 0
         self._hist_ref = None
         self._wave_span = 0.0
+        self._wave_unit = ""
+        self._wave_len = 0.0
         self._wf[:] = WATERFALL_LEVELS_DB[0]
         self._wf_span = None
         self._error_text = ""
@@ -591,7 +596,7 @@ class LiveWindow(QtWidgets.QMainWindow):
                 self.waterfall.setImage(self._wf, autoLevels=False)
         if self.frames % TEXT_EVERY_FRAMES == 0:
             self._update_text()
-            if self._history_dirty:
+            if self._history_dirty and self.frames % HISTORY_EVERY_FRAMES == 0:
                 # the strip scrolls, so each redraw re-ticks its axis: a few times a
                 # second is enough for a trend
                 self._history_dirty = False
@@ -639,14 +644,18 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.spectrum_curve.setData(v.spectrum_hz, v.spectrum_db)
         for i, line in enumerate(self.markers):
             if i < len(v.markers_hz):
-                line.setValue(v.markers_hz[i])
-                line.show()
-            else:
+                if line.value() != v.markers_hz[i]:
+                    line.setValue(v.markers_hz[i])
+                if not line.isVisible():
+                    line.show()
+            elif line.isVisible():
                 line.hide()
         if v.span_hz is not None:
-            self.span.setRegion(v.span_hz)
-            self.span.show()
-        else:
+            if tuple(self.span.getRegion()) != tuple(v.span_hz):
+                self.span.setRegion(v.span_hz)
+            if not self.span.isVisible():
+                self.span.show()
+        elif self.span.isVisible():
             self.span.hide()
         self.wave_curve.setData(v.waveform_s, v.waveform)
         peak = float(np.max(np.abs(v.waveform))) if v.waveform.size else 0.0
@@ -655,12 +664,15 @@ class LiveWindow(QtWidgets.QMainWindow):
             # ticks, and no re-ticking of the axis on every gate
             self._wave_span = _nice_ceiling(1.1 * peak) if peak > 0 else 1.0
             self.wave_plot.setYRange(-self._wave_span, self._wave_span, padding=0)
-        if v.waveform_s.size:
-            self.wave_plot.setXRange(0.0, float(v.waveform_s[-1]), padding=0)
-        if v.waveform_unit == "Hz":
-            self.wave_plot.setLabel("left", "deviation", units="Hz")
-        else:
-            self.wave_plot.setLabel("left", "audio (full scale)")
+        if v.waveform_s.size and float(v.waveform_s[-1]) != self._wave_len:
+            self._wave_len = float(v.waveform_s[-1])
+            self.wave_plot.setXRange(0.0, self._wave_len, padding=0)
+        if v.waveform_unit != self._wave_unit:  # a new label re-lays the axis out: rarely
+            self._wave_unit = v.waveform_unit
+            if v.waveform_unit == "Hz":
+                self.wave_plot.setLabel("left", "deviation", units="Hz")
+            else:
+                self.wave_plot.setLabel("left", "audio (full scale)")
 
     def _update_text(self) -> None:
         s = self.session
