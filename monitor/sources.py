@@ -34,6 +34,10 @@ MAX_READ_SAMPLES = 1 << 21
 # the blocks (a flagged block starts at it), so scattered NaNs must not make a block per
 # sample. 16 samples is the engine's shortest gate.
 NAN_JOIN_SAMPLES = 16
+# A float file's sample beyond this many times full scale (+120 dBFS) is garbage (a
+# mis-declared format, a broken writer), not audio; left in, its square overflows the
+# spectra. It is treated as a non-finite sample.
+MAX_ABS_SAMPLE = 1e6
 # Stretches named in the warning; the rest are counted.
 NAN_SPANS_LISTED = 5
 # Sidecar field limits: a sound-card clock is off by tens of ppm (common practice); a
@@ -75,6 +79,7 @@ class _NonFinite:
 
     def __init__(self):
         self.count = 0
+        self.out_of_range = 0  # finite but beyond MAX_ABS_SAMPLE
         self.n_spans = 0
         self.listed: list[list[int]] = []  # [first, last] sample of the first stretches
         self.last: list[int] | None = None  # the stretch still growing
@@ -90,13 +95,15 @@ class _NonFinite:
 
     def message(self, fs_hz: float) -> str:
         def span(a: int, b: int) -> str:
-            return f"{a / fs_hz:.3f} s" if a == b else f"{a / fs_hz:.3f}-{b / fs_hz:.3f} s"
+            ta, tb = f"{a / fs_hz:.3f}", f"{b / fs_hz:.3f}"
+            return f"{ta} s" if ta == tb else f"{ta}-{tb} s"
 
         where = ", ".join(span(a, b) for a, b in self.listed)
         more = self.n_spans - len(self.listed)
         if more > 0:
             where += f" and {more} more stretch{'es' if more > 1 else ''}"
-        what = "NaN/Inf sample" if self.count == 1 else "NaN/Inf samples"
+        what = "NaN/Inf" if not self.out_of_range else "NaN/Inf or out-of-range"
+        what += " sample" if self.count == 1 else " samples"
         return (
             f"{self.count} {what} at {where} replaced by silence; gates across them are not joined"
         )
@@ -105,10 +112,11 @@ class _NonFinite:
 class _BlockReader:
     """Common iteration: counts frames, replaces non-finite samples by silence.
 
-    A stretch of NaN/Inf samples (a converter or a writer that failed for a moment) is
-    replaced by zeros and treated as lost input: the block is split so that one block
-    starts where the stretch starts and one where it ends, both flagged `overflow`, so
-    the engine does not follow the phase across the gap. The stretches are named in
+    A stretch of NaN/Inf samples (a converter or a writer that failed for a moment), or
+    of float samples beyond MAX_ABS_SAMPLE times full scale, is replaced by zeros and
+    treated as lost input: the block is split so that one block starts where the
+    stretch starts and one where it ends, both flagged `overflow`, so the engine does
+    not follow the phase across the gap. The stretches are named in
     `warnings`. A stream with no finite sample at all raises `InputError` at its end.
     """
 
@@ -129,7 +137,8 @@ class _BlockReader:
             n = samples.shape[0]
             if n == 0:
                 continue
-            finite = np.isfinite(samples)
+            with np.errstate(invalid="ignore"):
+                finite = np.abs(samples) <= MAX_ABS_SAMPLE  # False for NaN and Inf too
             if finite.all():
                 yield Block(samples, start, self.meta)
                 start += n
@@ -141,7 +150,7 @@ class _BlockReader:
             if bad.count >= start:
                 raise InputError(
                     f"{self.meta.source}: no usable samples: all {start} samples are NaN or "
-                    "infinite"
+                    f"infinite (or beyond {MAX_ABS_SAMPLE:g} times full scale)"
                 )
             self._warn(bad.message(self.meta.fs_hz))
         expected = self.meta.frames
@@ -151,9 +160,10 @@ class _BlockReader:
     def _split_non_finite(
         self, samples: np.ndarray, finite: np.ndarray, start: int, bad: _NonFinite
     ) -> Iterator[Block]:
-        samples = np.where(finite, samples, 0.0).astype(samples.dtype, copy=False)
         idx = np.flatnonzero(~finite)
         bad.count += int(idx.size)
+        bad.out_of_range += int(np.count_nonzero(np.isfinite(samples[idx])))
+        samples = np.where(finite, samples, 0.0).astype(samples.dtype, copy=False)
         gaps = np.flatnonzero(np.diff(idx) > NAN_JOIN_SAMPLES)
         firsts = idx[np.r_[0, gaps + 1]]
         lasts = idx[np.r_[gaps, idx.size - 1]]

@@ -40,7 +40,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import soundfile as sf
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from monitor import profiles, readings_io, record
@@ -116,8 +116,9 @@ class _CaseTimeout(BaseException):
 def bounded(what: str, seconds: float = CASE_TIMEOUT_S):
     """Fail the case if its body runs longer than `seconds`.
 
-    POSIX main thread: SIGALRM interrupts the body. Elsewhere (Windows, worker threads) a
-    watchdog only measures, and a slow case fails when it returns.
+    POSIX main thread: SIGALRM interrupts the body (a timer already running, such as
+    pytest-timeout's, is put back afterwards). Elsewhere (Windows, worker threads) the
+    time is only measured, and a slow case fails when it returns.
     """
     use_alarm = (
         hasattr(signal, "setitimer") and threading.current_thread() is threading.main_thread()
@@ -128,8 +129,8 @@ def bounded(what: str, seconds: float = CASE_TIMEOUT_S):
         def ring(signum, frame):
             raise _CaseTimeout
 
-        old = signal.signal(signal.SIGALRM, ring)
-        signal.setitimer(signal.ITIMER_REAL, seconds)
+        old_handler = signal.signal(signal.SIGALRM, ring)
+        old_timer = signal.setitimer(signal.ITIMER_REAL, seconds)
     try:
         yield
     except _CaseTimeout:
@@ -137,9 +138,37 @@ def bounded(what: str, seconds: float = CASE_TIMEOUT_S):
     finally:
         if use_alarm:
             signal.setitimer(signal.ITIMER_REAL, 0)
-            signal.signal(signal.SIGALRM, old)
+            signal.signal(signal.SIGALRM, old_handler)
+            if old_timer[0] > 0:
+                left = max(old_timer[0] - (time.monotonic() - t0), 1e-3)
+                signal.setitimer(signal.ITIMER_REAL, left, old_timer[1])
     elapsed = time.monotonic() - t0
     assert elapsed <= seconds, f"{what}: took {elapsed:.1f} s"
+
+
+class TestBounded:
+    def test_a_hang_fails_the_case(self):
+        if not hasattr(signal, "setitimer"):
+            pytest.skip("no SIGALRM here: the watchdog only measures")
+        with pytest.raises(AssertionError, match=r"no result after 0\.2 s"):
+            with bounded("sleeper", 0.2):
+                time.sleep(5)
+
+    def test_a_slow_case_fails_when_it_returns(self):
+        # off the main thread (and on Windows) only the watchdog measures
+        caught = []
+
+        def body():
+            try:
+                with bounded("slow", 0.05):
+                    time.sleep(0.1)
+            except AssertionError as exc:
+                caught.append(str(exc))
+
+        t = threading.Thread(target=body)
+        t.start()
+        t.join()
+        assert caught and caught[0].startswith("slow: took")
 
 
 # --------------------------------------------------------------------------- contracts
@@ -411,6 +440,7 @@ def work_dir(tmp_path_factory):
 class TestSoundFileReaderFuzz:
     @fuzz_settings("soundfile")
     @given(seed=SEEDS)
+    @example(seed=853_781_223_856)  # a float sample of 5e157 once crashed the engine
     def test_mutated_recordings(self, work_dir, seed):
         r = random.Random(seed)
         ext, data = mutated_recording(r)
@@ -791,6 +821,7 @@ class TestReadingsFuzz:
 
     @fuzz_settings("readings_json")
     @given(seed=SEEDS)
+    @example(seed=5_737_319_115)  # the document `[]`
     def test_json(self, work_dir, seed):
         r = random.Random(seed)
         doc = r.choice([GOOD_READINGS, [GOOD_READINGS, GOOD_READINGS], GOOD_READINGS["readings"]])
@@ -801,6 +832,8 @@ class TestReadingsFuzz:
                 result = readings_io.read_readings_json(p)
             except InputError:
                 return
+            if result == [] and json.loads(p.read_bytes()) == []:
+                return  # a known failure of readings_io: TestKnownForeignFailures
             check_series(result)
 
 
@@ -877,6 +910,7 @@ class TestCorpus:
             "wav-float-all-nan.wav",
             "wav-fmt-short.wav",
             "wav-bad-magic.wav",
+            "wav-float-huge-values.wav",
         ],
     )
     def test_unusable_recordings_say_so(self, name):
@@ -1072,6 +1106,14 @@ class TestKnownForeignFailures:
     def test_readings_deep_nesting(self, tmp_path):
         (tmp_path / "r.json").write_text(self.DEEP)
         readings_io.read_readings_json(tmp_path / "r.json")
+
+    @pytest.mark.xfail(strict=True, raises=IndexError, reason="load_series: '[]' gives []")
+    def test_readings_empty_list(self, tmp_path):
+        # read_readings_json returns [] for the document `[]` (no InputError); load_series
+        # then takes many[0]
+        (tmp_path / "r.json").write_text("[]")
+        assert readings_io.read_readings_json(tmp_path / "r.json") == []
+        readings_io.load_series(tmp_path / "r.json")
 
     @pytest.mark.xfail(strict=True, raises=OverflowError, reason="readings JSON: 1e400 int")
     def test_readings_huge_integer(self, tmp_path):

@@ -246,6 +246,21 @@ class TestUnusableInput:
         # the sine is still read: 1000 Hz exactly as written (the generator's value)
         assert a.summary.tone.frequency_hz == pytest.approx(1000.0, abs=1e-3)
 
+    def test_absurd_float_samples_become_silence(self, tmp_path):
+        # 5e157 (a float file with garbage in it) is no sample: left in, its square would
+        # overflow every spectrum; it is silenced and named like a NaN
+        x = reference_signal()
+        x[2000:2003] = [5e157, -3e38, 2e6]
+        p = tmp_path / "absurd.wav"
+        sf.write(p, x, 8000, subtype="DOUBLE")
+        src = open_source(p)
+        y = read_all(src)
+        assert np.all(y[2000:2003] == 0) and np.array_equal(y[:2000], x[:2000])
+        assert src.warnings == [
+            "3 NaN/Inf or out-of-range samples at 0.250 s replaced by silence; "
+            "gates across them are not joined"
+        ]
+
     @pytest.mark.parametrize("bad", [np.nan, np.inf])
     def test_all_non_finite_raises(self, tmp_path, bad):
         p = tmp_path / "allnan.wav"
