@@ -29,7 +29,8 @@ from monitor.live import LiveConfig, LiveSession, start_session
 from monitor.window import readouts as ro
 
 FRAME_MS = 50  # 20 frames/s
-TEXT_EVERY_FRAMES = 4  # text 5 times a second
+TEXT_EVERY_FRAMES = 4  # text 5 times a second ...
+TEXT_MIN_FRAMES = 3  # ... or at once for a new reading, at most 6.7 times a second
 HISTORY_EVERY_FRAMES = 8  # the history strip (a trend) 2.5 times a second
 HISTORY_POINTS = 3600
 WATERFALL_ROWS = 60
@@ -105,8 +106,13 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.session: LiveSession | None = None
         self.hold = ro.PeakHold()
         self.latest = None  # LiveReading
-        self.latencies: deque[float] = deque(maxlen=4096)  # block arrival -> on screen, s
+        # block arrival -> its reading in the counter's text, s (readings that arrive
+        # faster than the text refreshes are drawn in the history only)
+        self.latencies: deque[float] = deque(maxlen=4096)
         self.frames = 0
+        self._text_frame = 0
+        self._text_seq = 0
+        self._history_frame = 0
         self._seq = 0
         self._vseq = 0
         self._hist_t = np.zeros(HISTORY_POINTS)
@@ -472,7 +478,7 @@ class LiveWindow(QtWidgets.QMainWindow):
                 self.record_button.setChecked(False)
             self.session.stop(timeout=1.0)
         self.session = None
-        self._seq = self._vseq = 0
+        self._seq = self._vseq = self._text_seq = 0
         self.latest = None
         self.hold.reset()
         self._hist_n = 0
@@ -577,13 +583,11 @@ class LiveWindow(QtWidgets.QMainWindow):
         if s is not None:
             new = s.readings_since(self._seq)
             if new:
-                now = time.monotonic()
                 for lr in new:
                     self._add_history(lr.reading)
                     self.hold.add(lr.reading)
                     if self._log is not None:
                         self._log.add(lr.reading)
-                    self.latencies.append(now - lr.arrived_s)
                 self._seq = new[-1].seq
                 self.latest = new[-1]
                 self._history_dirty = True
@@ -594,13 +598,18 @@ class LiveWindow(QtWidgets.QMainWindow):
                     self._add_waterfall_row(v)
                 self._draw_view(views[-1][1])
                 self.waterfall.setImage(self._wf, autoLevels=False)
-        if self.frames % TEXT_EVERY_FRAMES == 0:
+        since = self.frames - self._text_frame
+        fresh = self.latest is not None and self.latest.seq != self._text_seq
+        # a new reading is shown at once unless text changed very recently; otherwise
+        # the text (status, stall time) refreshes a few times a second
+        if (fresh and since >= TEXT_MIN_FRAMES) or since >= TEXT_EVERY_FRAMES:
             self._update_text()
-            if self._history_dirty and self.frames % HISTORY_EVERY_FRAMES == 0:
-                # the strip scrolls, so each redraw re-ticks its axis: a few times a
-                # second is enough for a trend
-                self._history_dirty = False
-                self._draw_history()
+        if self._history_dirty and self.frames - self._history_frame >= HISTORY_EVERY_FRAMES:
+            # the strip scrolls, so each redraw re-ticks its axis: a few times a second is
+            # enough for a trend
+            self._history_dirty = False
+            self._history_frame = self.frames
+            self._draw_history()
 
     def _add_history(self, r) -> None:
         f = ro.shown_frequency(r, harmonic=int(self.config.meta.get("harmonic", 1))).value_hz
@@ -675,6 +684,10 @@ class LiveWindow(QtWidgets.QMainWindow):
                 self.wave_plot.setLabel("left", "audio (full scale)")
 
     def _update_text(self) -> None:
+        self._text_frame = self.frames
+        if self.latest is not None and self.latest.seq != self._text_seq:
+            self._text_seq = self.latest.seq
+            self.latencies.append(time.monotonic() - self.latest.arrived_s)
         s = self.session
         c = self.config
         meta = s.meta if s is not None and s.meta is not None else None
