@@ -338,6 +338,9 @@ def run_headless(args, config) -> int:
                 interrupted = True
         if log is not None:
             log.close()
+    if session is None:  # interrupted while the input was being opened
+        print("stopped by Ctrl+C before the first block", file=sys.stderr)
+        return 0
     stats = session.stats
     note = f"{stats.readings} readings, {stats.dropped_blocks} dropped blocks"
     if skipped:
