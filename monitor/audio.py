@@ -77,6 +77,10 @@ def reinitialize_portaudio() -> None:
         raise DeviceError(f"cannot re-initialise PortAudio: {exc}") from None
 
 
+# How long closing a stream may take before it is abandoned (a vanished device).
+CLOSE_TIMEOUT_S = 2.0
+
+
 @dataclass(frozen=True)
 class InputDevice:
     """One sound-card input as PortAudio sees it.
@@ -416,14 +420,31 @@ class SoundCardSource:
         return self
 
     def close(self) -> None:
-        """Stop and close the stream; safe to call more than once."""
+        """Stop and close the stream; safe to call more than once.
+
+        A device that went away can leave PortAudio's stop waiting for buffers that never
+        come (seen with ALSA's pulse plugin after the sound server died), so the stream
+        is aborted in a helper thread and abandoned if that does not return promptly.
+        """
         self._stop.set()
         stream, self._stream = self._stream, None
-        if stream is not None:
+        if stream is None:
+            return
+
+        def shut() -> None:
             try:
-                stream.stop()
+                stream.abort()
+            except Exception:  # the device is gone; closing is best effort
+                pass
             finally:
-                stream.close()
+                try:
+                    stream.close()
+                except Exception:
+                    pass
+
+        t = threading.Thread(target=shut, name="swingmeter-audio-close", daemon=True)
+        t.start()
+        t.join(CLOSE_TIMEOUT_S)
 
     def stop(self) -> None:
         """Ask the iteration to end after the current block (thread-safe)."""
