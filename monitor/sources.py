@@ -410,7 +410,8 @@ class SigMFSource(_BlockReader):
         while pos < total:
             count = min(self._read_frames, total - pos)
             try:
-                data = np.asarray(self._f.read_samples(start_index=pos, count=count))
+                with np.errstate(all="ignore"):  # sigmf's casts of wild data: silenced later
+                    data = np.asarray(self._f.read_samples(start_index=pos, count=count))
             except Exception as exc:
                 raise InputError(
                     f"{self.path}: read failed at sample {pos} ({type(exc).__name__}: {exc})"
