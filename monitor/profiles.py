@@ -15,6 +15,7 @@ import re
 import tempfile
 from pathlib import Path
 
+from monitor import jsonio
 from monitor.errors import ProfileError
 
 PROFILE_FILE = "bench-profiles.json"
@@ -49,8 +50,8 @@ def load_all() -> dict[str, dict]:
     if not path.exists():
         return {}
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        data = jsonio.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
         raise ProfileError(
             f"{path}: bench-profile file is corrupt ({exc}); it was left as it is — "
             "repair or move it"

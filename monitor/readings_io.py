@@ -17,13 +17,13 @@ Everything that makes a file unusable raises `InputError` naming the file and th
 from __future__ import annotations
 
 import csv
-import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from monitor import jsonio
 from monitor.errors import InputError
 
 __all__ = [
@@ -226,9 +226,11 @@ def read_readings_json(path: str | Path) -> list[ReadingSeries]:
     path = Path(path)
     with _open_text(path) as fh:
         try:
-            doc = json.load(fh)
-        except json.JSONDecodeError as exc:
-            raise InputError(f"{path}: invalid JSON ({exc.msg} at line {exc.lineno})") from None
+            doc = jsonio.loads(fh.read())
+        except ValueError as exc:
+            if isinstance(exc, UnicodeDecodeError):
+                raise InputError(f"{path}: not a text (UTF-8) JSON file") from None
+            raise InputError(f"{path}: {jsonio.describe(exc)}") from None
         except UnicodeDecodeError:
             raise InputError(f"{path}: not a text (UTF-8) JSON file") from None
 
@@ -338,6 +340,8 @@ def load_series(
         many = read_readings_json(p)
     else:
         many = read_readings_csv(p)
+    if not many:
+        raise InputError(f"{p}: holds no readings")
     if record is None:
         if len(many) > 1:
             raise InputError(

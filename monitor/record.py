@@ -35,7 +35,7 @@ from typing import Any
 
 import numpy as np
 
-from monitor import __version__
+from monitor import __version__, jsonio
 from monitor.blocks import MODES, Block, StreamMeta
 from monitor.errors import InputError
 
@@ -189,9 +189,9 @@ def read_sidecar(path: str | os.PathLike, *, missing_ok: bool = False) -> dict[s
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{side}: cannot read metadata sidecar ({exc})") from None
     try:
-        data = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(f"{side}: corrupt metadata sidecar ({exc})") from None
+        data = jsonio.loads(text)
+    except ValueError as exc:
+        raise InputError(f"{side}: corrupt metadata sidecar ({jsonio.describe(exc)})") from None
     if not isinstance(data, dict) or data.get("format") != SIDECAR_FORMAT:
         raise InputError(f"{side}: not a swingmeter metadata sidecar")
     for key, types in _SIDECAR_TYPES.items():
