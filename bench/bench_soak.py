@@ -280,9 +280,12 @@ def main(argv: list[str] | None = None) -> int:
     )
     ok &= abs(z) <= 4.0
     st = summary.tone
+    dev = st.frequency_hz - f0
     print(
         f"whole run: {st.frequency_hz:.10f} Hz +- {st.uncertainty_hz:.1e} Hz ({st.method}, "
-        f"{st.n_gates} gates, Birge ratio {st.birge_ratio:.2f})"
+        f"{st.n_gates} gates, Birge ratio {st.birge_ratio:.2f}); vs generator {dev:+.1e} Hz "
+        f"({dev / st.uncertainty_hz:+.1f} u) - reported, not judged: the combination is "
+        "the engine's"
     )
     if summary.warnings:
         print("summary warnings: " + "; ".join(summary.warnings))
