@@ -1124,6 +1124,7 @@ class TestKnownForeignFailures:
 # --------------------------------------------------------------------------- the promise
 
 
+@pytest.mark.fuzz  # in make test (the share's settings) and in make fuzz (the full ones)
 class TestFuzzBudget:
     def test_full_run_is_at_least_100000_cases(self):
         assert sum(FULL_EXAMPLES.values()) >= FUZZ_TOTAL_PROMISED
