@@ -33,6 +33,7 @@ TEXT_EVERY_FRAMES = 4  # text 5 times a second ...
 TEXT_MIN_FRAMES = 3  # ... or at once for a new reading, at most 6.7 times a second
 HISTORY_EVERY_FRAMES = 8  # the history strip (a trend) 2.5 times a second
 HISTORY_POINTS = 3600
+HISTORY_SYMBOLS_MAX = 300
 WATERFALL_ROWS = 60
 WATERFALL_COLS = 512
 WATERFALL_LEVELS_DB = (-130.0, -10.0)
@@ -119,6 +120,7 @@ class LiveWindow(QtWidgets.QMainWindow):
         self._hist_f = np.zeros(HISTORY_POINTS)
         self._hist_n = 0
         self._hist_ref: float | None = None
+        self._hist_symbols = True
         self._history_dirty = False
         self._wf = np.full((WATERFALL_ROWS, WATERFALL_COLS), WATERFALL_LEVELS_DB[0], np.float32)
         self._wf_span: tuple[float, float] | None = None
@@ -631,6 +633,10 @@ class LiveWindow(QtWidgets.QMainWindow):
             # offsets from a round reference keep the axis readable at mHz spreads
             self._hist_ref = float(math.floor(self._hist_f[0]))
             self.history_plot.setLabel("left", f"frequency − {self._hist_ref:.0f} Hz", units="Hz")
+        symbols = n <= HISTORY_SYMBOLS_MAX  # dots help a short strip; a long one pays for them
+        if symbols != self._hist_symbols:
+            self._hist_symbols = symbols
+            self.history_curve.setSymbol("o" if symbols else None)
         self.history_curve.setData(self._hist_t[:n], self._hist_f[:n] - self._hist_ref)
 
     def _add_waterfall_row(self, v) -> None:
