@@ -34,6 +34,7 @@ TEXT_MIN_FRAMES = 3  # ... or at once for a new reading, at most 6.7 times a sec
 HISTORY_EVERY_FRAMES = 8  # the history strip (a trend) 2.5 times a second
 HISTORY_POINTS = 3600
 HISTORY_SYMBOLS_MAX = 300
+LEFT_AXIS_PX = 72
 WATERFALL_ROWS = 60
 WATERFALL_COLS = 512
 WATERFALL_LEVELS_DB = (-130.0, -10.0)
@@ -223,6 +224,8 @@ class LiveWindow(QtWidgets.QMainWindow):
                 plot.getAxis(name).setCacheMode(
                     QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache
                 )
+            # a fixed width: room for "-1500" and the label, no re-layout as ticks change
+            plot.getAxis("left").setWidth(LEFT_AXIS_PX)
         self.spectrum_curve.setDownsampling(auto=True, method="peak")
         self.spectrum_curve.setSkipFiniteCheck(True)
         self.wave_curve.setSkipFiniteCheck(True)
@@ -606,7 +609,8 @@ class LiveWindow(QtWidgets.QMainWindow):
         # the text (status, stall time) refreshes a few times a second
         if (fresh and since >= TEXT_MIN_FRAMES) or since >= TEXT_EVERY_FRAMES:
             self._update_text()
-        if self._history_dirty and self.frames - self._history_frame >= HISTORY_EVERY_FRAMES:
+        due = self.frames - self._history_frame >= HISTORY_EVERY_FRAMES
+        if self._history_dirty and (due or (s is not None and s.done)):
             # the strip scrolls, so each redraw re-ticks its axis: a few times a second is
             # enough for a trend
             self._history_dirty = False
