@@ -510,7 +510,7 @@ def _get(obj, path):
 
 def mutate_json(r: random.Random, doc, *, wild: bool) -> bytes:
     """Apply 1-4 structure/type mutations to a copy of `doc`, serialise, maybe cut or flip
-    the text. `wild` adds what only our own readers promise to survive: integers of
+    the text. `wild` adds what the plain JSON parser chokes on: integers of
     hundreds of digits and nesting deeper than the parser's recursion limit."""
     doc = json.loads(json.dumps(doc))
     for _ in range(r.randint(1, 4)):
@@ -665,9 +665,8 @@ class TestSidecarFuzz:
     @given(seed=SEEDS)
     def test_read_sidecar(self, work_dir, seed):
         r = random.Random(seed)
-        # monitor.record.read_sidecar alone; wild JSON (deep nesting, 400-digit numbers) is
-        # in TestKnownForeignFailures
-        raw = mutate_json(r, GOOD_SIDECAR, wild=False)
+        # monitor.record.read_sidecar alone
+        raw = mutate_json(r, GOOD_SIDECAR, wild=True)
         wav = work_dir / "direct.wav"
         record.sidecar_path(wav).write_bytes(raw)
         with bounded("read_sidecar"):
@@ -695,7 +694,7 @@ class TestProfilesFuzz:
     @given(seed=SEEDS)
     def test_load(self, config_dir, seed):
         r = random.Random(seed)
-        raw = mutate_json(r, GOOD_PROFILES, wild=False)
+        raw = mutate_json(r, GOOD_PROFILES, wild=True)
         config_dir.mkdir(parents=True, exist_ok=True)
         (config_dir / profiles.PROFILE_FILE).write_bytes(raw)
         with bounded("profiles.load"):
@@ -821,49 +820,25 @@ class TestReadingsFuzz:
 
     @fuzz_settings("readings_json")
     @given(seed=SEEDS)
-    @example(seed=5_737_319_115)  # the document `[]`
+    @example(seed=5_737_319_115)  # the document `[]` (once returned no series, no error)
     def test_json(self, work_dir, seed):
         r = random.Random(seed)
         doc = r.choice([GOOD_READINGS, [GOOD_READINGS, GOOD_READINGS], GOOD_READINGS["readings"]])
         p = work_dir / "readings.json"
-        p.write_bytes(mutate_json(r, doc, wild=False))
+        p.write_bytes(mutate_json(r, doc, wild=True))
         with bounded("read_readings_json"):
             try:
                 result = readings_io.read_readings_json(p)
             except InputError:
                 return
-            if result == [] and json.loads(p.read_bytes()) == []:
-                return  # a known failure of readings_io: TestKnownForeignFailures
             check_series(result)
 
 
 # --------------------------------------------------------------------------- hand-made corpus
 
-# Inputs that crash readers owned by other modules (reported; not ours to edit here).
-KNOWN_FOREIGN = {
-    "sidecar-deep-nesting.wav.swingmeter.json": "record.read_sidecar: RecursionError",
-    "sidecar-int-5000-digits.wav.swingmeter.json": "record.read_sidecar: ValueError",
-    "profiles-deep-nesting.json": "profiles.load_all: RecursionError",
-    "profiles-int-5000-digits.json": "profiles.load_all: ValueError",
-    "profiles-clock-int-huge.json": "profiles.load: OverflowError in math.isfinite",
-    "readings-deep-nesting.json": "readings_io.read_readings_json: RecursionError",
-    "readings-int-5000-digits.json": "readings_io.read_readings_json: ValueError",
-    "readings-time-int-huge.json": "readings_io.read_readings_json: OverflowError in float()",
-}
-
 
 def _corpus(pattern: str) -> list:
-    files = sorted(CORPUS.glob(pattern))
-    return [
-        pytest.param(
-            f,
-            id=f.name,
-            marks=[pytest.mark.xfail(strict=True, reason=KNOWN_FOREIGN[f.name])]
-            if f.name in KNOWN_FOREIGN
-            else [],
-        )
-        for f in files
-    ]
+    return [pytest.param(f, id=f.name) for f in sorted(CORPUS.glob(pattern))]
 
 
 @pytest.mark.fuzz
@@ -1069,56 +1044,43 @@ print("ok")
         assert r.returncode == 0 and r.stdout.strip() == "ok", r.stderr[-2000:]
 
 
-# --------------------------------------------------------------------------- known failures
+# --------------------------------------------------------------------------- found by fuzzing
 
 
 @pytest.mark.fuzz
-class TestKnownForeignFailures:
-    """Exact reproductions of crashes in readers owned by other modules (reported)."""
+class TestFoundByFuzzing:
+    """Inputs that once crashed the JSON readers of other modules (RecursionError,
+    ValueError, OverflowError, IndexError); since commit 08b6832 each ends in our error."""
 
     DEEP = "[" * 3000 + "]" * 3000
     DIGITS = '{"format": "swingmeter-recording", "fs_hz": ' + "9" * 5000 + "}"
 
-    @pytest.mark.xfail(strict=True, raises=RecursionError, reason="read_sidecar: deep JSON")
-    def test_read_sidecar_deep_nesting(self, tmp_path):
-        record.sidecar_path(tmp_path / "a.wav").write_text(self.DEEP)
-        check_sidecar(tmp_path / "a.wav")
+    @pytest.mark.parametrize("text", [DEEP, DIGITS], ids=["deep", "5000-digits"])
+    def test_read_sidecar(self, tmp_path, text):
+        record.sidecar_path(tmp_path / "a.wav").write_text(text)
+        with pytest.raises(InputError, match=r"a\.wav\.swingmeter\.json"):
+            record.read_sidecar(tmp_path / "a.wav")
 
-    @pytest.mark.xfail(strict=True, raises=ValueError, reason="read_sidecar: 5000-digit int")
-    def test_read_sidecar_long_integer(self, tmp_path):
-        record.sidecar_path(tmp_path / "a.wav").write_text(self.DIGITS)
-        check_sidecar(tmp_path / "a.wav")
-
-    @pytest.mark.xfail(strict=True, raises=RecursionError, reason="load_all: deep JSON")
-    def test_profiles_deep_nesting(self, config_dir):
+    @pytest.mark.parametrize(
+        "text",
+        [DEEP, '{"schema": 1, "profiles": {"bench-a": {"clock_ppm": 1' + "0" * 400 + "}}}"],
+        ids=["deep", "1e400-int"],
+    )
+    def test_profiles(self, config_dir, text):
         config_dir.mkdir(parents=True, exist_ok=True)
-        (config_dir / profiles.PROFILE_FILE).write_text(self.DEEP)
-        check_profiles()
-
-    @pytest.mark.xfail(strict=True, raises=OverflowError, reason="load: clock_ppm 1e400 int")
-    def test_profiles_huge_integer(self, config_dir):
-        config_dir.mkdir(parents=True, exist_ok=True)
-        text = '{"schema": 1, "profiles": {"bench-a": {"clock_ppm": 1' + "0" * 400 + "}}}"
         (config_dir / profiles.PROFILE_FILE).write_text(text)
-        check_profiles(["bench-a"])
+        with pytest.raises(ProfileError, match=r"bench-profiles\.json"):
+            profiles.load("bench-a")
 
-    @pytest.mark.xfail(strict=True, raises=RecursionError, reason="readings JSON: deep")
-    def test_readings_deep_nesting(self, tmp_path):
-        (tmp_path / "r.json").write_text(self.DEEP)
-        readings_io.read_readings_json(tmp_path / "r.json")
-
-    @pytest.mark.xfail(strict=True, raises=IndexError, reason="load_series: '[]' gives []")
-    def test_readings_empty_list(self, tmp_path):
-        # read_readings_json returns [] for the document `[]` (no InputError); load_series
-        # then takes many[0]
-        (tmp_path / "r.json").write_text("[]")
-        assert readings_io.read_readings_json(tmp_path / "r.json") == []
-        readings_io.load_series(tmp_path / "r.json")
-
-    @pytest.mark.xfail(strict=True, raises=OverflowError, reason="readings JSON: 1e400 int")
-    def test_readings_huge_integer(self, tmp_path):
-        (tmp_path / "r.json").write_text('{"readings": [{"t_s": 1' + "0" * 400 + "}]}")
-        readings_io.read_readings_json(tmp_path / "r.json")
+    @pytest.mark.parametrize(
+        "text",
+        [DEEP, '{"readings": [{"t_s": 1' + "0" * 400 + "}]}", "[]"],
+        ids=["deep", "1e400-int", "empty-list"],
+    )
+    def test_readings_json(self, tmp_path, text):
+        (tmp_path / "r.json").write_text(text)
+        with pytest.raises(InputError, match=r"r\.json"):
+            readings_io.load_series(tmp_path / "r.json")
 
 
 # --------------------------------------------------------------------------- the promise
