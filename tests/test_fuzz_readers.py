@@ -831,6 +831,10 @@ class TestReadingsFuzz:
                 result = readings_io.read_readings_json(p)
             except InputError:
                 return
+            if result == []:  # the document `[]`: no records; load_series must refuse it
+                with pytest.raises(InputError, match="no readings"):
+                    readings_io.load_series(p)
+                return
             check_series(result)
 
 
