@@ -477,8 +477,14 @@ def measure_quality(
     fundamental_hz: float,
     n_harmonics: int = 10,
     mains: Mains = "auto",
+    sfdr: bool = True,
 ) -> QualityFigures:
     """Measure SNR, SINAD, THD, THD+N, ENOB, SFDR and mains hum of a tone of known frequency.
+
+    With ``sfdr=False`` the spur search (a 16384-point spectrum, the costliest part) is
+    skipped: sfdr_db, spur_hz and spur_power are NaN, and `combine_quality` leaves such
+    gates out of the summary's SFDR. A monitor measuring every gate can search spurs on
+    some gates only.
 
     Definitions (S fundamental, D harmonics 2..k, N noise including hum, all mean squares):
 
@@ -633,7 +639,10 @@ def measure_quality(
         resid = float(np.dot(r, r))
     noise_power = (max(resid, 0.0) + other_energy) / max(n - n_par, 1)
 
-    spur_power, spur_hz = _largest_spur(a, fs, f0, float(b[0]))
+    if sfdr:
+        spur_power, spur_hz = _largest_spur(a, fs, f0, float(b[0]))
+    else:
+        spur_power, spur_hz = math.nan, math.nan
     if spur_power < 0.0:
         spur_power = 0.0
         warnings.warn(
@@ -702,7 +711,13 @@ def combine_quality(figures: Sequence[QualityFigures]) -> QualityFigures:
         return float(np.dot(wts, [getattr(f, field) for f in figs]))
 
     hum_gate = max(figs, key=lambda f: (f.hum_hz is not None, f.hum_power))
-    spur_gate = max(figs, key=lambda f: f.spur_power)
+    searched = [f for f in figs if math.isfinite(f.spur_power)]
+    spur_gate = max(searched, key=lambda f: f.spur_power) if searched else figs[0]
+    if searched:
+        sw = np.array([f.n_samples for f in searched], dtype=np.float64)
+        spur_avg = float(np.dot(sw / sw.sum(), [f.spur_power for f in searched]))
+    else:
+        spur_avg = math.nan
     return _figures_from_powers(
         fundamental_hz=avg("fundamental_hz"),
         fs_hz=figs[0].fs_hz,
@@ -714,7 +729,7 @@ def combine_quality(figures: Sequence[QualityFigures]) -> QualityFigures:
         harmonic_power=avg("harmonic_power"),
         noise_power=avg("noise_power"),
         hum_power=avg("hum_power"),
-        spur_power=avg("spur_power"),
+        spur_power=spur_avg,
         dc_power=avg("dc_power"),
         total_power=avg("total_power"),
     )

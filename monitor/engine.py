@@ -28,6 +28,9 @@ SILENCE_DBFS = -110.0
 # Integrated SNR (N * eta) below which a gate holds no usable tone: the estimator's
 # threshold, where outliers begin, lies near 12-16 dB (references.md [computed]).
 TONE_GATE_SNR_MIN_DB = 20.0
+# SFDR needs a fine spectrum; searching one gate in this many keeps the quality meter
+# cheap while the summary's SFDR still covers the record.
+SFDR_EVERY_GATES = 8
 
 
 @dataclass(frozen=True)
@@ -249,6 +252,16 @@ class _LevelAccumulator:
         self.peak = max(self.peak, float(np.max(np.abs(x))) if x.size else 0.0)
         self.clipped += int(clipped)
 
+    def add_level(self, lvl) -> None:
+        """Add a gate from its LevelFigures (no second pass over the samples)."""
+        n = lvl.n_samples
+        rms = 10 ** (lvl.rms_dbfs / 20) / math.sqrt(2.0) * self.full_scale
+        self.n += n
+        self.sum += lvl.dc_offset * n
+        self.sum2 += rms * rms * n
+        self.peak = max(self.peak, 10 ** (lvl.peak_dbfs / 20) * self.full_scale)
+        self.clipped += int(lvl.clipped_samples)
+
     def summary(self) -> LevelSummary:
         n = max(self.n, 1)
         rms = math.sqrt(self.sum2 / n)
@@ -312,7 +325,7 @@ class AudioProcessor:
         s = self.settings
         k = self.meta.clock_factor
         lvl = dq.measure_level(x)
-        self._levels.add(x, lvl.clipped_samples)
+        self._levels.add_level(lvl)
         xf = self.filtered(x)
         gate_s = x.shape[0] / self.fs
         freq = unc = amp = tsnr = None
@@ -331,6 +344,8 @@ class AudioProcessor:
                         fundamental_hz=est.frequency_hz,
                         n_harmonics=s.n_harmonics,
                         mains=_mains_arg(s.mains),
+                        # the spur search is the costliest part: a sample of gates
+                        sfdr=len(self._qualities) % SFDR_EVERY_GATES == 0,
                     )
                     self._qualities.append(qual)
             else:
@@ -355,7 +370,7 @@ class AudioProcessor:
             thd_percent=None if qual is None else qual.thd_percent,
             thd_n_percent=None if qual is None else qual.thd_n_percent,
             enob_bits=None if qual is None else qual.enob_bits,
-            sfdr_db=None if qual is None else qual.sfdr_db,
+            sfdr_db=None if qual is None or not math.isfinite(qual.sfdr_db) else qual.sfdr_db,
             hum_db=None if qual is None else qual.hum_db,
             contiguous=contiguous,
             overflow=overflow,
