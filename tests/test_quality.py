@@ -368,3 +368,18 @@ class TestCombineQuality:
             combine_quality([q, 1.0])
         with pytest.raises(ValueError, match="different sample rates"):
             combine_quality([q, q8])
+
+
+class TestSpurSearchSkipped:
+    def test_sfdr_false_leaves_other_figures_and_combines(self):
+        # a spur 60 dB below a 1 kHz tone (the spur's level is the outside reference:
+        # 20 log10(1e-3) = -60 dB)
+        x = tone(1000.0, 48000, 0.5) + 0.5e-3 * tone(7300.0, 48000, 1.0, 0.1)
+        full = measure_quality(x, FS, fundamental_hz=1000.0)
+        quick = measure_quality(x, FS, fundamental_hz=1000.0, sfdr=False)
+        assert np.isnan(quick.sfdr_db) and np.isnan(quick.spur_power)
+        assert quick.sinad_db == pytest.approx(full.sinad_db, abs=1e-9)
+        assert full.sfdr_db == pytest.approx(60.0, abs=0.2)
+        both = combine_quality([full, quick, quick])
+        assert both.sfdr_db == pytest.approx(full.sfdr_db, abs=1e-9)
+        assert np.isnan(combine_quality([quick, quick]).sfdr_db)
