@@ -515,8 +515,9 @@ def estimate_tone(
         band_hz = (lo, hi)
     if near_hz is not None and not (0 < near_hz < fs_hz / 2):
         raise ValueError(f"near_hz={near_hz} must be inside (0, fs/2)")
-    if check_finite and not np.isfinite(np.sum(x)):
-        raise ValueError("x contains NaN or infinite samples")
+    if check_finite and not np.isfinite(np.dot(x, x)):
+        # (x.x also overflows for |x| > 1e154, which the spectra could not hold either)
+        raise ValueError("x contains NaN, infinite or absurdly large samples")
 
     acquired = start_hz is None
     f0 = _coarse(x, fs_hz, near_hz, band_hz, fundamental) if acquired else float(start_hz)

@@ -273,6 +273,26 @@ class _LevelAccumulator:
         )
 
 
+class _GateTable:
+    """Rows of floats appended gate by gate, in a numpy array that doubles as needed."""
+
+    def __init__(self, width: int = 7):
+        self._a = np.empty((64, width))
+        self._n = 0
+
+    def append(self, *row: float) -> None:
+        if self._n == self._a.shape[0]:
+            self._a = np.concatenate([self._a, np.empty_like(self._a)])
+        self._a[self._n] = row
+        self._n += 1
+
+    def __len__(self) -> int:
+        return self._n
+
+    def columns(self) -> tuple[np.ndarray, ...]:
+        return tuple(self._a[: self._n].T.copy())
+
+
 class AudioProcessor:
     """`audio` mode: the counter, the level and the audio-quality meter on each gate."""
 
@@ -282,8 +302,12 @@ class AudioProcessor:
         self.fs = meta.fs_hz
         self._track_hz: float | None = None
         self._track_snr: float | None = None
-        self._tones: list[tuple[float, dt.ToneEstimate, bool]] = []
-        self._qualities: list = []
+        # per-gate tone figures in a compact growing table (56 bytes a gate), and the
+        # quality meter's powers folded into one running figure: memory stays small
+        # over day-long sessions
+        self._tones = _GateTable()
+        self._quality_acc = None
+        self._n_quality = 0
         self._levels = _LevelAccumulator()
         self._sos = None
         self._zi = None
@@ -336,7 +360,15 @@ class AudioProcessor:
                 self._track_hz, self._track_snr = est.frequency_hz, est.snr_db
                 freq, unc = est.frequency_hz * k, est.uncertainty_hz * k
                 amp, tsnr = est.amplitude_dbfs, est.snr_db
-                self._tones.append((t_s, est, contiguous))
+                self._tones.append(
+                    t_s + est.t_ref_s,
+                    est.frequency_hz,
+                    est.uncertainty_hz,
+                    est.phase_rad,
+                    est.phase_uncertainty_rad,
+                    float(contiguous),
+                    est.amplitude,
+                )
                 if 0 < est.frequency_hz < self.fs / 2:
                     qual = dq.measure_quality(
                         xf,
@@ -345,9 +377,14 @@ class AudioProcessor:
                         n_harmonics=s.n_harmonics,
                         mains=_mains_arg(s.mains),
                         # the spur search is the costliest part: a sample of gates
-                        sfdr=len(self._qualities) % SFDR_EVERY_GATES == 0,
+                        sfdr=self._n_quality % SFDR_EVERY_GATES == 0,
                     )
-                    self._qualities.append(qual)
+                    self._n_quality += 1
+                    self._quality_acc = (
+                        qual
+                        if self._quality_acc is None
+                        else dq.combine_quality([self._quality_acc, qual])
+                    )
             else:
                 self._track_hz = None
         if freq is None:
@@ -397,23 +434,14 @@ class AudioProcessor:
 
     def tone_summary(self) -> ToneSummary:
         k = self.meta.clock_factor
-        if not self._tones:
+        if not len(self._tones):
             return ToneSummary(None, None, None, None, None, 0, None)
-        t = [ts + e.t_ref_s for ts, e, _ in self._tones]
-        comb = dt.combine_gates(
-            t,
-            [e.frequency_hz for _, e, _ in self._tones],
-            [e.uncertainty_hz for _, e, _ in self._tones],
-            [e.phase_rad for _, e, _ in self._tones],
-            [e.phase_uncertainty_rad for _, e, _ in self._tones],
-            contiguous=[c for _, _, c in self._tones],
-        )
-        amps = [e.amplitude for _, e, _ in self._tones]
+        t, f, sf, ph, sp, cont, amps = self._tones.columns()
+        comb = dt.combine_gates(t, f, sf, ph, sp, contiguous=cont.astype(bool))
         amp_rms = math.sqrt(float(np.mean(np.square(amps))))
         drift = None
         if len(self._tones) >= 3:
-            f = np.array([e.frequency_hz for _, e, _ in self._tones]) * k
-            drift = float(np.polyfit(np.asarray(t), f, 1)[0])
+            drift = float(np.polyfit(t, f * k, 1)[0])
         return ToneSummary(
             frequency_hz=comb.frequency_hz * k,
             uncertainty_hz=comb.uncertainty_hz * k,
@@ -425,11 +453,11 @@ class AudioProcessor:
         )
 
     def quality_summary(self) -> QualitySummary:
-        if not self._qualities:
+        if self._quality_acc is None:
             return QualitySummary(
                 None, None, None, None, None, None, None, None, self.settings.filter
             )
-        q = dq.combine_quality(self._qualities)
+        q = self._quality_acc
         return QualitySummary(
             snr_db=q.snr_db,
             sinad_db=q.sinad_db,
@@ -552,6 +580,7 @@ class Engine:
         self.on_reading = on_reading
         self.keep_readings = keep_readings
         self.readings: list[Reading] = []
+        self.gates = 0  # gates measured, whether or not their readings are kept
         self.gate_n = max(16, int(round(self.settings.gate_s * meta.fs_hz)))
         dtype = np.complex128 if meta.mode == "iq" else np.float64
         self._buf = np.empty(self.gate_n, dtype=dtype)
@@ -607,6 +636,7 @@ class Engine:
         )
         self._contiguous = True
         self._overflow = False
+        self.gates += 1
         if self.keep_readings:
             self.readings.append(r)
         if self.on_reading is not None:
@@ -619,7 +649,7 @@ class Engine:
         """Process the partial last gate if it is long enough (half a gate, or the only
         data there is)."""
         out = []
-        if self._fill and (self._fill >= self.gate_n // 2 or not self.readings):
+        if self._fill and (self._fill >= self.gate_n // 2 or not self.gates):
             if self._fill >= 16:
                 out.append(self._emit(self._buf[: self._fill].copy()))
         self._fill = 0
@@ -645,7 +675,7 @@ class Engine:
             warnings.append("silence: no signal above the noise of the converter")
         elif level.rms_dbfs < LOW_LEVEL_DBFS:
             warnings.append(f"very low level ({level.rms_dbfs:.1f} dBFS): raise the input level")
-        n_read = len(self.readings)
+        n_read = self.gates
         if getattr(p, "no_tone_gates", 0):
             warnings.append(f"{p.no_tone_gates} of {n_read} gates held no usable tone")
         extra = getattr(p, "summary_warnings", None)

@@ -142,3 +142,26 @@ class TestFilters:
         assert a.summary.quality.snr_db is not None
         # the counter runs on the unfiltered signal: the frequency is unaffected
         assert a.summary.tone.frequency_hz == pytest.approx(1000.25, abs=1e-3)
+
+
+class TestLongSessions:
+    def test_gate_count_without_kept_readings(self):
+        src = ArraySource(np.zeros(8000 * 3), 8000.0)
+        eng = Engine(src.meta, AnalysisSettings(), keep_readings=False)
+        for b in src:
+            eng.feed(b)
+        eng.finish()
+        assert eng.gates == 3 and eng.readings == []
+        assert any("3 of 3 gates held no usable tone" in w for w in eng.summary().warnings)
+
+    def test_per_gate_state_is_compact(self):
+        # memory per gate must stay a few tens of bytes, not a list of objects per gate
+        src = ArraySource(sine(200.0, fs=1000.0, f=100.25, noise=1e-3), 1000.0)
+        eng = Engine(src.meta, AnalysisSettings(gate_s=0.1), keep_readings=False)
+        for b in src:
+            eng.feed(b)
+        p = eng.processor
+        assert eng.gates == 2000
+        assert p._tones._a.nbytes <= 2 * 2048 * 7 * 8
+        assert p._quality_acc is not None  # one running figure, not a list
+        assert eng.summary().tone.frequency_hz == pytest.approx(100.25, abs=1e-4)

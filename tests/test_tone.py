@@ -307,3 +307,12 @@ class TestFormat:
 
     def test_missing(self):
         assert format_with_uncertainty(math.nan, 1.0).startswith("—")
+
+
+class TestAbsurdInput:
+    def test_huge_sample_is_refused_not_crashed(self):
+        # found by fuzzing: one sample of 5.49e157 overflowed the spectrum into NaN
+        x = 0.5 * np.sin(2 * np.pi * 1000 * np.arange(300) / 96000)
+        x[-1] = 5.49e157
+        with pytest.raises(ValueError, match="absurdly large"):
+            estimate_tone(x, 96000.0)
