@@ -37,7 +37,7 @@ bench: sysdeps $(STAMP)
 	$(PY) bench/run.py
 
 fuzz: $(STAMP)
-	SWINGMETER_FUZZ=full $(PY) -m pytest -q tests -m fuzz
+	SWINGMETER_FUZZ=full $(PY) -m pytest -q -n 2 tests -m fuzz
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .ruff_cache
