@@ -372,9 +372,9 @@ def _solve_normal(g: np.ndarray, p: np.ndarray, well_separated: bool) -> np.ndar
 
 @lru_cache(maxsize=8)
 def _kaiser(length: int) -> tuple[np.ndarray, float]:
-    from scipy.signal.windows import kaiser
-
-    win = kaiser(length, _KAISER_BETA, sym=False)
+    # periodic Kaiser window (as scipy.signal.windows.kaiser(sym=False)); numpy's own
+    # saves importing scipy.signal, which takes longer than analysing a minute of audio
+    win = np.kaiser(length + 1, _KAISER_BETA)[:-1]
     win.setflags(write=False)
     return win, float(np.dot(win, win))
 
