@@ -189,8 +189,11 @@ def run(args) -> int:
         if args.json:
             print(output.dumps(result))
         else:
+            from dsp.tone import format_with_uncertainty
+
             con.print(
-                f"clock correction {ppm:+.3f} ± {u_total:.3f} ppm (1σ) saved in bench profile "
+                f"clock correction {format_with_uncertainty(ppm, u_total, 'ppm')} (1σ) saved "
+                "in bench profile "
                 f"[bold]{args.profile}[/bold]\n"
                 f"  measured {analysis.summary.tone.frequency_hz:.6f} Hz for a "
                 f"{args.reference:g} Hz reference at {analysis.meta.fs_hz:g} Hz nominal"
