@@ -17,6 +17,7 @@ import numpy as np
 from dsp import quality as dq
 from dsp import tone as dt
 from monitor.blocks import Block, StreamMeta
+from monitor.engine_tables import GateTable as _GateTable
 
 GATE_MIN_S = 0.1
 GATE_MAX_S = 100.0
@@ -271,26 +272,6 @@ class _LevelAccumulator:
             clipped_samples=self.clipped,
             dc_offset=self.sum / n,
         )
-
-
-class _GateTable:
-    """Rows of floats appended gate by gate, in a numpy array that doubles as needed."""
-
-    def __init__(self, width: int = 7):
-        self._a = np.empty((64, width))
-        self._n = 0
-
-    def append(self, *row: float) -> None:
-        if self._n == self._a.shape[0]:
-            self._a = np.concatenate([self._a, np.empty_like(self._a)])
-        self._a[self._n] = row
-        self._n += 1
-
-    def __len__(self) -> int:
-        return self._n
-
-    def columns(self) -> tuple[np.ndarray, ...]:
-        return tuple(self._a[: self._n].T.copy())
 
 
 class AudioProcessor:

@@ -21,6 +21,7 @@ from dsp import quality as dq
 from dsp import spectrum as dspec
 from dsp import tone as dt
 from monitor.blocks import StreamMeta
+from monitor.engine_tables import GateTable as _GateTable
 from monitor.errors import InputError
 
 POST_FILTERS = ("none", "300-3000", "20-15k")
@@ -127,16 +128,6 @@ class IqSummary:
     phase_imbalance_deg: float
     image_rejection_db: float
     corrected: bool
-
-
-@dataclass
-class _GatePhase:
-    t_ref_s: float
-    f_hz: float
-    f_sigma_hz: float
-    phase: float
-    phase_sigma: float
-    contiguous: bool
 
 
 @dataclass
@@ -294,13 +285,23 @@ class FmProcessor:
         self._post_sos = None
         self._post_zi = None
         self.post_filter = "none"
-        self._gates: list[_GatePhase] = []
-        self._dev_figs: list[dfm.DeviationFigures] = []
+        # per-gate figures in compact tables and running sums, so that memory stays small
+        # over day-long sessions: (t_ref, offset, sigma_f, phase, sigma_phase,
+        # contiguous, cnr) per gate
+        self._gates = _GateTable(7)
+        self._dev_n = 0
+        self._dev_ms_n = 0.0
+        self._dev_peak_pos = -math.inf
+        self._dev_peak_neg = math.inf
         self._hist = dfm.DeviationHistogram(bin_hz=1.0)
         self._power: dfm.ModulationPowerMeter | None = None
         self._spec: dspec.SpectrumAverager | None = None
-        self._qualities: list = []
-        self._tones: list[dt.ToneEstimate] = []
+        self._quality_acc = None
+        self._last_tone: dt.ToneEstimate | None = None
+        self._tone_w = 0.0  # sum of 1/sigma^2 of the tone frequencies
+        self._tone_wf = 0.0
+        self._tone_amp_sum = 0.0
+        self._tone_n = 0
         self._hold = 0.0
         self._last_baseband: np.ndarray | None = None
         self._last_offset_hz = 0.0
@@ -309,8 +310,7 @@ class FmProcessor:
         self._z_count = 0
         self._settle = 0
         self._summary_cache = None
-        self._cnrs: list[float] = []
-        self._iq_healths: list = []
+        self._iq = _GateTable(5)  # dc_i, dc_q, gain dB, phase deg, image rejection dB
         self._levels = _levels()
         self.no_tone_gates = 0
         self._notes: list[str] = []
@@ -402,9 +402,16 @@ class FmProcessor:
             self._demod.reset()
             self._restart_run(t_s)
         if self.kind == "complex":
-            self._iq_healths.append(_iq_health(x))
+            health = _iq_health(x)
+            self._iq.append(
+                health.dc_i,
+                health.dc_q,
+                health.gain_imbalance_db,
+                health.phase_imbalance_deg,
+                health.image_rejection_db,
+            )
             if self.fms.iq_correct:
-                x = _iq_correct(x, self._iq_healths[-1])
+                x = _iq_correct(x, health)
         inst, z = self._demod.process_baseband(x)
         demod = self._demod
         if z.shape[0] < 32:
@@ -417,14 +424,13 @@ class FmProcessor:
         fs_out = demod.fs_out_hz
         offset, phase, t_c, s_f, s_p, cnr = _phase_line(z, inst, fs_out)
         cnr_db = 10 * math.log10(cnr) if cnr > 0 else -math.inf
-        self._cnrs.append(cnr)
         carrier = self._carrier.nco_hz + offset
         # Baseband samples of one demodulator run are consecutive, so their count fixes
         # each gate's time up to a constant, which is all the phase join needs; the join
         # follows the baseband phase, i.e. the offset from the mixer.
         t_ref = self._run_t0 + self._z_count / fs_out + t_c
         self._z_count += z.shape[0]
-        self._gates.append(_GatePhase(t_ref, offset, s_f, phase, s_p, contiguous and not overflow))
+        self._gates.append(t_ref, offset, s_f, phase, s_p, float(contiguous and not overflow), cnr)
         # a share of each gate is plenty for the averaged spectrum (bandwidths)
         self._spec.update(z[: SPECTRUM_SEGMENTS_PER_GATE * self._spec.nfft])
         self._last_baseband = z
@@ -437,7 +443,10 @@ class FmProcessor:
             self._settle -= cut
         self._last_dev = dev_f
         figs = dfm.deviation_figures(dev_f)
-        self._dev_figs.append(figs)
+        self._dev_n += figs.n_samples
+        self._dev_ms_n += figs.rms_hz**2 * figs.n_samples
+        self._dev_peak_pos = max(self._dev_peak_pos, figs.peak_pos_hz)
+        self._dev_peak_neg = min(self._dev_peak_neg, figs.peak_neg_hz)
         self._hist.update(dev_f)
         self._power.update(dev_f)
         self._hold = max(self._hold, figs.peak_pos_hz, -figs.peak_neg_hz)
@@ -446,8 +455,8 @@ class FmProcessor:
         if cnr_db >= CNR_MIN_DB and dev_f.shape[0] >= 64:
             try:
                 tone = None
-                if self._tones:  # track the last tone; search afresh if it was lost
-                    prev = self._tones[-1]
+                if self._last_tone is not None:  # track it; search afresh if it was lost
+                    prev = self._last_tone
                     tone = dt.estimate_tone(
                         dev_f, fs_out, start_hz=prev.frequency_hz, check_finite=False
                     )
@@ -458,10 +467,19 @@ class FmProcessor:
             except ValueError:
                 tone = None
             if tone is not None and tone.gate_snr_db >= 20.0 and tone.amplitude > 0.5:
-                self._tones.append(tone)
+                self._last_tone = tone
+                w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
+                self._tone_w += w
+                self._tone_wf += w * tone.frequency_hz
+                self._tone_amp_sum += tone.amplitude
+                self._tone_n += 1
                 if 0 < tone.frequency_hz < fs_out / 2:
                     qual = dq.measure_quality(dev_f, fs_out, fundamental_hz=tone.frequency_hz)
-                    self._qualities.append(qual)
+                    self._quality_acc = (
+                        qual
+                        if self._quality_acc is None
+                        else dq.combine_quality([self._quality_acc, qual])
+                    )
             else:
                 tone = None
         if tone is None:
@@ -542,13 +560,13 @@ class FmProcessor:
     def tone_summary(self):
         from monitor.engine import ToneSummary
 
-        if not self._gates:
+        if not len(self._gates):
             return ToneSummary(None, None, None, None, None, 0, None)
         comb = self._combine()
         drift = None
         if len(self._gates) >= 3:
-            t = np.array([g.t_ref_s for g in self._gates])
-            f = np.array([g.f_hz for g in self._gates]) * self.k
+            t, f = self._gates.columns()[:2]
+            f = f * self.k
             drift = float(np.polyfit(t, f, 1)[0])
         return ToneSummary(
             frequency_hz=(self._carrier.nco_hz + comb.frequency_hz) * self.k,
@@ -561,22 +579,15 @@ class FmProcessor:
         )
 
     def _combine(self) -> dt.GateCombination:
-        g = self._gates
-        return dt.combine_gates(
-            [x.t_ref_s for x in g],
-            [x.f_hz for x in g],
-            [x.f_sigma_hz for x in g],
-            [x.phase for x in g],
-            [x.phase_sigma for x in g],
-            contiguous=[x.contiguous for x in g],
-        )
+        t, f, sf, ph, sp, cont, _ = self._gates.columns()
+        return dt.combine_gates(t, f, sf, ph, sp, contiguous=cont.astype(bool))
 
     def quality_summary(self):
         from monitor.engine import QualitySummary
 
-        if not self._qualities:
+        if self._quality_acc is None:
             return QualitySummary(None, None, None, None, None, None, None, None, self.post_filter)
-        q = dq.combine_quality(self._qualities)
+        q = self._quality_acc
         return QualitySummary(
             q.snr_db, q.sinad_db, q.thd_percent, q.thd_n_percent, q.enob_bits, q.sfdr_db,
             None, None, self.post_filter,
@@ -591,7 +602,7 @@ class FmProcessor:
         return s
 
     def _fm_summary(self) -> FmSummary | None:
-        if not self._gates or not self._dev_figs:
+        if not len(self._gates) or not self._dev_n:
             return None
         k = self.k
         comb = self._combine()
@@ -600,18 +611,15 @@ class FmProcessor:
         meta = self.meta
         rf = rf_from_carrier(meta, carrier)
         n_h = max(1, meta.harmonic)
-        figs = self._dev_figs
-        peak_pos = max(f.peak_pos_hz for f in figs) * k
-        peak_neg = min(f.peak_neg_hz for f in figs) * k
-        ms = sum(f.rms_hz**2 * f.n_samples for f in figs) / sum(f.n_samples for f in figs)
+        peak_pos = self._dev_peak_pos * k
+        peak_neg = self._dev_peak_neg * k
+        ms = self._dev_ms_n / self._dev_n
         rms = math.sqrt(ms) * k
         tone_hz = tone_u = tone_peak = mod_index = None
-        if self._tones:
-            ws = np.array([1.0 / t.uncertainty_hz**2 for t in self._tones])
-            fr = np.array([t.frequency_hz for t in self._tones])
-            tone_hz = float(np.sum(ws * fr) / ws.sum()) * k
-            tone_u = float(1 / math.sqrt(ws.sum())) * k
-            tone_peak = float(np.mean([t.amplitude for t in self._tones])) * k
+        if self._tone_n:
+            tone_hz = self._tone_wf / self._tone_w * k
+            tone_u = 1.0 / math.sqrt(self._tone_w) * k
+            tone_peak = self._tone_amp_sum / self._tone_n * k
             mod_index = tone_peak / tone_hz
         peak_avg = (peak_pos - peak_neg) / 2.0
         dev = DeviationSummary(
@@ -641,7 +649,7 @@ class FmProcessor:
             bessel = self._bessel(tone_hz / k)
         mp = self._power.result()
         quality = self.quality_summary()
-        cnr = float(np.median(self._cnrs)) if self._cnrs else None
+        cnr = float(np.median(self._gates.columns()[6])) if len(self._gates) else None
         return FmSummary(
             carrier_hz=carrier,
             carrier_uncertainty_hz=carrier_u,
@@ -680,7 +688,7 @@ class FmProcessor:
         z = self._last_baseband
         fs_out = self._demod.fs_out_hz
         beta_guess = (
-            (self._tones[-1].amplitude / self._tones[-1].frequency_hz) if self._tones else 1
+            (self._last_tone.amplitude / self._last_tone.frequency_hz) if self._last_tone else 1
         )
         kmax = int(min(40, max(3, math.ceil(beta_guess + 4))))
         # all lines must lie inside the baseband's band
@@ -705,15 +713,15 @@ class FmProcessor:
         )
 
     def iq_summary(self) -> IqSummary | None:
-        if not self._iq_healths:
+        if not len(self._iq):
             return None
-        hs = self._iq_healths
+        dc_i, dc_q, gain, phase, image = self._iq.columns()
         return IqSummary(
-            dc_i=float(np.mean([h.dc_i for h in hs])),
-            dc_q=float(np.mean([h.dc_q for h in hs])),
-            gain_imbalance_db=float(np.median([h.gain_imbalance_db for h in hs])),
-            phase_imbalance_deg=float(np.median([h.phase_imbalance_deg for h in hs])),
-            image_rejection_db=float(np.median([h.image_rejection_db for h in hs])),
+            dc_i=float(np.mean(dc_i)),
+            dc_q=float(np.mean(dc_q)),
+            gain_imbalance_db=float(np.median(gain)),
+            phase_imbalance_deg=float(np.median(phase)),
+            image_rejection_db=float(np.median(image)),
             corrected=self.fms.iq_correct,
         )
 
@@ -734,7 +742,7 @@ class FmProcessor:
                 f"carrier-to-noise ratio {s.cnr_db:.1f} dB: the discriminator output is noisy "
                 "and peak deviation reads high"
             )
-        if not self._tones:
+        if not self._tone_n:
             out.append("no modulating tone found: modulation index and Bessel fit not given")
         return out
 
