@@ -650,42 +650,48 @@ def combine_gates(
         return mean_result
     if contiguous is not None and not all(list(contiguous)[1:]):
         return mean_result
-    # Unwrap: predicted advance from the mean of the two neighbours' frequencies.
-    unwrapped = np.empty(k)
-    unwrapped[0] = ph[0]
+    # Follow the phase from gate to gate as a residual against a reference frequency, so
+    # the numbers stay small: over a day at 1 kHz the phase itself reaches ~5e8 rad,
+    # where float64 keeps only ~1e-7 rad, more than a gate's phase uncertainty.
+    f_ref = f_mean
+    d = f - f_ref
+    psi = np.empty(k)
+    psi[0] = 0.0
     for i in range(1, k):
         dt = t[i] - t[i - 1]
-        predicted = unwrapped[i - 1] + TWO_PI * 0.5 * (f[i - 1] + f[i]) * dt
+        f_mid = 0.5 * (f[i - 1] + f[i])
         # the prediction error must be well inside half a cycle to trust the unwrap
         pred_sigma = TWO_PI * 0.5 * math.hypot(sf[i - 1], sf[i]) * dt
         if pred_sigma > 0.5:
             return mean_result
-        m = round((predicted - ph[i]) / TWO_PI)
-        unwrapped[i] = ph[i] + TWO_PI * m
-        if abs(unwrapped[i] - predicted) > 0.5 * math.pi:
+        miss = ph[i] - ph[i - 1] - TWO_PI * f_mid * dt
+        miss = (miss + math.pi) % TWO_PI - math.pi
+        if abs(miss) > 0.5 * math.pi:
             return mean_result
+        psi[i] = psi[i - 1] + TWO_PI * (f_mid - f_ref) * dt + miss
     tm = float(np.mean(t))
     tau = t - tm
     wp = 1.0 / sp**2
-    # Normal equations for (p, f): phase rows [1, 2 pi tau], frequency rows [0, 1].
+    # Normal equations for (p, delta): phase rows [1, 2 pi tau], frequency rows [0, 1],
+    # with psi = p + 2 pi delta tau and f - f_ref = delta.
     a11 = np.sum(wp)
     a12 = np.sum(wp * TWO_PI * tau)
     a22 = np.sum(wp * (TWO_PI * tau) ** 2) + np.sum(wf)
-    b1 = np.sum(wp * unwrapped)
-    b2 = np.sum(wp * TWO_PI * tau * unwrapped) + np.sum(wf * f)
+    b1 = np.sum(wp * psi)
+    b2 = np.sum(wp * TWO_PI * tau * psi) + np.sum(wf * d)
     mat = np.array([[a11, a12], [a12, a22]])
     try:
-        p_hat, f_hat = np.linalg.solve(mat, [b1, b2])
+        p_hat, delta = np.linalg.solve(mat, [b1, b2])
         cov = np.linalg.inv(mat)
     except np.linalg.LinAlgError:
         return mean_result
-    res_p = unwrapped - p_hat - TWO_PI * f_hat * tau
-    res_f = f - f_hat
+    res_p = psi - p_hat - TWO_PI * delta * tau
+    res_f = d - delta
     chi2 = float(np.sum(wp * res_p**2) + np.sum(wf * res_f**2))
     dof = 2 * k - 2
     birge = math.sqrt(chi2 / dof) if dof > 0 else 1.0
     sigma = math.sqrt(cov[1, 1]) * max(1.0, birge)
-    return GateCombination(float(f_hat), float(sigma), "phase-coherent", float(birge), k)
+    return GateCombination(float(f_ref + delta), float(sigma), "phase-coherent", float(birge), k)
 
 
 def format_with_uncertainty(value: float, sigma: float, unit: str = "Hz") -> str:
