@@ -42,3 +42,25 @@ def positive_frequency_arg(text: str) -> float:
     if value <= 0:
         raise argparse.ArgumentTypeError(f"frequency must be positive: {text!r}")
     return value
+
+
+def harmonic_arg(text: str) -> int:
+    """argparse `type=` for a harmonic number N (1 to 1000)."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a harmonic number: {text!r}") from None
+    if not 1 <= value <= 1000:
+        raise argparse.ArgumentTypeError(f"harmonic must be 1 or more (at most 1000): {text!r}")
+    return value
+
+
+def duration_arg(text: str) -> float:
+    """argparse `type=` for a duration in seconds."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a duration in seconds: {text!r}") from None
+    if not 0 < value < 1e7:
+        raise argparse.ArgumentTypeError(f"duration must be positive seconds: {text!r}")
+    return value

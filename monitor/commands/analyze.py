@@ -8,7 +8,7 @@ import sys
 from dsp.filters import FILTERS
 from monitor.blocks import MODES
 from monitor.errors import InputError
-from monitor.units import frequency_arg, positive_frequency_arg
+from monitor.units import frequency_arg, harmonic_arg, positive_frequency_arg
 
 HELP = "measure recordings: frequency with uncertainty, level, audio quality"
 EPILOG = """\
@@ -114,7 +114,7 @@ def add_fm_options(p: argparse.ArgumentParser) -> None:
     )
     g.add_argument(
         "--harmonic",
-        type=_harmonic_arg,
+        type=harmonic_arg,
         default=None,
         metavar="N",
         help="the receiver hears the Nth harmonic: fundamental = RF / N, fundamental "
@@ -150,16 +150,6 @@ def add_fm_options(p: argparse.ArgumentParser) -> None:
         action="store_true",
         help="iq: correct DC offset, gain and phase imbalance before demodulating",
     )
-
-
-def _harmonic_arg(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"harmonic must be a whole number: {text!r}") from None
-    if not 1 <= n <= 1000:
-        raise argparse.ArgumentTypeError(f"harmonic must be 1 to 1000: {text!r}")
-    return n
 
 
 def add_parser(sub) -> argparse.ArgumentParser:

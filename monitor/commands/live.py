@@ -11,7 +11,7 @@ import time
 
 from monitor.commands import analyze
 from monitor.errors import InputError
-from monitor.units import frequency_arg, positive_frequency_arg
+from monitor.units import duration_arg, frequency_arg, harmonic_arg, positive_frequency_arg
 
 HELP = "live window (or headless readings) from a sound card or a replayed recording"
 EPILOG = """\
@@ -43,26 +43,6 @@ def _speed_arg(text: str) -> float:
     return value
 
 
-def _duration_arg(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a duration in seconds: {text!r}") from None
-    if not 0 < value < 1e7:
-        raise argparse.ArgumentTypeError(f"duration must be positive seconds: {text!r}")
-    return value
-
-
-def _harmonic_arg(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a harmonic number: {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"harmonic must be 1 or more: {text!r}")
-    return value
-
-
 def _add_fm_options(p: argparse.ArgumentParser) -> None:
     """The FM options of `analyze` when it has them, else the stream fields we need."""
     add = getattr(analyze, "add_fm_options", None)
@@ -86,7 +66,7 @@ def _add_fm_options(p: argparse.ArgumentParser) -> None:
     if "harmonic" not in have:
         p.add_argument(
             "--harmonic",
-            type=_harmonic_arg,
+            type=harmonic_arg,
             default=1,
             metavar="N",
             help="the receiver hears harmonic N of the oscillator (default: 1)",
@@ -136,7 +116,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
     )
     out.add_argument(
         "--duration",
-        type=_duration_arg,
+        type=duration_arg,
         metavar="S",
         help="stop after S seconds of signal (default: until the end or Ctrl+C)",
     )

@@ -14,7 +14,7 @@ import time
 
 from monitor.blocks import MODES
 from monitor.errors import InputError
-from monitor.units import frequency_arg, positive_frequency_arg
+from monitor.units import duration_arg, frequency_arg, harmonic_arg, positive_frequency_arg
 
 HELP = "record a sound-card input to a crash-safe WAV/RF64 (or SigMF) file with its metadata"
 EPILOG = """\
@@ -46,26 +46,6 @@ def _channel_arg(text: str) -> int:
         raise argparse.ArgumentTypeError(f"not a channel number: {text!r}") from None
     if value < 0:
         raise argparse.ArgumentTypeError(f"channel must be 0 or more: {text!r}")
-    return value
-
-
-def _harmonic_arg(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a harmonic number: {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"harmonic must be 1 or more: {text!r}")
-    return value
-
-
-def _duration_arg(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a duration in seconds: {text!r}") from None
-    if not 0 < value < 1e7:
-        raise argparse.ArgumentTypeError(f"duration must be positive seconds: {text!r}")
     return value
 
 
@@ -115,7 +95,7 @@ def add_input_options(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--harmonic",
-        type=_harmonic_arg,
+        type=harmonic_arg,
         default=1,
         metavar="N",
         help="the receiver hears harmonic N of the oscillator (default: 1, the fundamental)",
@@ -202,7 +182,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument("out", metavar="OUT.wav", help="output file")
     p.add_argument(
         "--duration",
-        type=_duration_arg,
+        type=duration_arg,
         required=True,
         metavar="S",
         help="seconds to record (required; also decides WAV or RF64)",
