@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import itertools
 import os
-import signal
 import subprocess
 import sys
 import threading
@@ -235,11 +234,29 @@ class TestSoundCardSource:
         assert source.stats.frames_delivered > 0
 
     def test_device_gone(self, pulse_server):
-        source = SoundCardSource("pulse", FS, block_frames=1024, stall_timeout_s=1.0)
-        with pytest.raises(DeviceError, match="stopped delivering samples"):
-            for block in source:
-                if block.start == 0:
-                    os.kill(pulse_server.pid, signal.SIGKILL)  # the server goes away
+        # Run in a child process: once the sound server is killed under an open stream,
+        # PortAudio (ALSA's pulse plugin) may block for good in stop or terminate, which
+        # must not take this test process's PortAudio down with it. The child reports and
+        # leaves with os._exit, skipping PortAudio's own exit handler.
+        code = (
+            "import os, signal, sys\n"
+            "from monitor.audio import SoundCardSource\n"
+            "from monitor.errors import DeviceError\n"
+            f"src = SoundCardSource('pulse', {FS}, block_frames=1024, stall_timeout_s=1.0)\n"
+            "try:\n"
+            "    for block in src:\n"
+            "        if block.start == 0:\n"
+            f"            os.kill({pulse_server.pid}, signal.SIGKILL)\n"
+            "except DeviceError as exc:\n"
+            "    print('DeviceError:', exc, flush=True)\n"
+            "os._exit(0)\n"
+        )
+        env = {**os.environ, **pulse_server.env}
+        r = subprocess.run(
+            [sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=60
+        )
+        assert "DeviceError:" in r.stdout, r.stdout + r.stderr
+        assert "stopped delivering samples" in r.stdout
 
     def test_raises(self, pulse_server):
         with pytest.raises(ValueError, match="mode='fm' must be one of"):
