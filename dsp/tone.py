@@ -446,6 +446,11 @@ def _coarse(
     return kf * df
 
 
+def _finite_energy(x: np.ndarray) -> bool:
+    with np.errstate(over="ignore", invalid="ignore"):
+        return bool(np.isfinite(np.dot(x, x)))
+
+
 def estimate_tone(
     x: np.ndarray,
     fs_hz: float,
@@ -515,7 +520,7 @@ def estimate_tone(
         band_hz = (lo, hi)
     if near_hz is not None and not (0 < near_hz < fs_hz / 2):
         raise ValueError(f"near_hz={near_hz} must be inside (0, fs/2)")
-    if check_finite and not np.isfinite(np.dot(x, x)):
+    if check_finite and not _finite_energy(x):
         # (x.x also overflows for |x| > 1e154, which the spectra could not hold either)
         raise ValueError("x contains NaN, infinite or absurdly large samples")
 
