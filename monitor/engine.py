@@ -383,13 +383,7 @@ class AudioProcessor:
             rms_dbfs=lvl.rms_dbfs,
             peak_dbfs=lvl.peak_dbfs,
             clipped_samples=lvl.clipped_samples,
-            snr_db=None if qual is None else qual.snr_db,
-            sinad_db=None if qual is None else qual.sinad_db,
-            thd_percent=None if qual is None else qual.thd_percent,
-            thd_n_percent=None if qual is None else qual.thd_n_percent,
-            enob_bits=None if qual is None else qual.enob_bits,
-            sfdr_db=None if qual is None or not math.isfinite(qual.sfdr_db) else qual.sfdr_db,
-            hum_db=None if qual is None else qual.hum_db,
+            **quality_fields(qual),
             contiguous=contiguous,
             overflow=overflow,
             **dev,
@@ -434,22 +428,39 @@ class AudioProcessor:
         )
 
     def quality_summary(self) -> QualitySummary:
-        if self._quality_acc is None:
-            return QualitySummary(
-                None, None, None, None, None, None, None, None, self.settings.filter
-            )
-        q = self._quality_acc
-        return QualitySummary(
-            snr_db=q.snr_db,
-            sinad_db=q.sinad_db,
-            thd_percent=q.thd_percent,
-            thd_n_percent=q.thd_n_percent,
-            enob_bits=q.enob_bits,
-            sfdr_db=q.sfdr_db,
-            hum_hz=q.hum_hz,
-            hum_db=q.hum_db,
-            filter=self.settings.filter,
-        )
+        return quality_summary(self._quality_acc, self.settings.filter)
+
+
+def quality_fields(q) -> dict:
+    """A gate's quality figures as Reading fields (None where not measured)."""
+    if q is None:
+        return {}
+    return {
+        "snr_db": q.snr_db,
+        "sinad_db": q.sinad_db,
+        "thd_percent": q.thd_percent,
+        "thd_n_percent": q.thd_n_percent,
+        "enob_bits": q.enob_bits,
+        "sfdr_db": q.sfdr_db if math.isfinite(q.sfdr_db) else None,
+        "hum_db": q.hum_db,
+    }
+
+
+def quality_summary(q, filter_name: str) -> QualitySummary:
+    """The record's quality figures (q: the running combined figure, or None)."""
+    if q is None:
+        return QualitySummary(None, None, None, None, None, None, None, None, filter_name)
+    return QualitySummary(
+        snr_db=q.snr_db,
+        sinad_db=q.sinad_db,
+        thd_percent=q.thd_percent,
+        thd_n_percent=q.thd_n_percent,
+        enob_bits=q.enob_bits,
+        sfdr_db=q.sfdr_db,
+        hum_hz=q.hum_hz,
+        hum_db=q.hum_db,
+        filter=filter_name,
+    )
 
 
 class _AudioDeviation:

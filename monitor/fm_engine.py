@@ -12,7 +12,7 @@ averaged baseband spectrum, and the Bessel-line fit of single-tone modulation.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
@@ -25,6 +25,8 @@ from monitor.engine_tables import GateTable as _GateTable
 from monitor.errors import InputError
 
 POST_FILTERS = ("none", "300-3000", "20-15k")
+# Quality figures a reading carries for the demodulated audio.
+_DEMOD_FIELDS = ("snr_db", "sinad_db", "thd_percent", "thd_n_percent")
 # Post-demodulation output discarded after each (re)start while the filter settles
 # (about eight time constants of its lowest corner).
 SETTLE_S = {"none": 0.005, "300-3000": 0.03, "20-15k": 0.3}
@@ -392,7 +394,7 @@ class FmProcessor:
 
     # -- per gate ----------------------------------------------------------------------
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool):
-        from monitor.engine import Reading
+        from monitor.engine import Reading, quality_fields
 
         lvl = self._levels.add(x)
         if self._demod is None:
@@ -495,10 +497,7 @@ class FmProcessor:
             uncertainty_hz=s_f * k / (n_h if rf is not None else 1),
             amplitude_dbfs=None,
             tone_snr_db=None,
-            snr_db=None if qual is None else qual.snr_db,
-            sinad_db=None if qual is None else qual.sinad_db,
-            thd_percent=None if qual is None else qual.thd_percent,
-            thd_n_percent=None if qual is None else qual.thd_n_percent,
+            **{k: v for k, v in quality_fields(qual).items() if k in _DEMOD_FIELDS},
             carrier_hz=carrier * k,
             carrier_uncertainty_hz=s_f * k,
             rf_hz=rf,
@@ -583,15 +582,12 @@ class FmProcessor:
         return dt.combine_gates(t, f, sf, ph, sp, contiguous=cont.astype(bool))
 
     def quality_summary(self):
-        from monitor.engine import QualitySummary
+        from monitor.engine import quality_summary
 
-        if self._quality_acc is None:
-            return QualitySummary(None, None, None, None, None, None, None, None, self.post_filter)
-        q = self._quality_acc
-        return QualitySummary(
-            q.snr_db, q.sinad_db, q.thd_percent, q.thd_n_percent, q.enob_bits, q.sfdr_db,
-            None, None, self.post_filter,
-        )  # fmt: skip
+        # the demodulated audio's figures; hum is not a figure of the modulation
+        return replace(
+            quality_summary(self._quality_acc, self.post_filter), hum_hz=None, hum_db=None
+        )
 
     def fm_summary(self) -> FmSummary | None:
         key = len(self._gates)
