@@ -199,6 +199,31 @@ class TestLiveWindow:
         win.reset_hold()
         assert win.dev["hold_pos"].text() == ro.DASH
 
+    def test_history_axis_moves_in_steps_and_holds_every_point(self, qtbot):
+        from monitor.window.app import HISTORY_POINTS, LiveWindow
+
+        config = LiveConfig(settings=AnalysisSettings(gate_s=0.1), rate_hz=48000.0)
+        win = LiveWindow(config, save_settings=False, session_factory=lambda c: None)
+        qtbot.addWidget(win)
+        win.timer.stop()
+        rng = np.random.default_rng(3)
+        changes, last = 0, None
+        for k in range(HISTORY_POINTS + 1500):  # fills the strip, then scrolls it
+            r = _reading(t_s=0.1 * k, gate_s=0.1, frequency_hz=1000.0 + 1e-3 * rng.normal())
+            win._add_history(r)
+            if k % 4 == 0:
+                win._draw_history()
+                n = win._hist_n
+                (x0, x1), (y0, y1) = win.history_plot.viewRange()
+                t, f = win._hist_t[:n], win._hist_f[:n] - win._hist_ref
+                assert x0 <= t.min() and t.max() <= x1  # every point on the strip
+                assert y0 <= f.min() and f.max() <= y1
+                changes += win._hist_shown != last
+                last = win._hist_shown
+        # the axis is re-ticked on a few steps, not on each of the ~1300 redraws
+        assert changes < 60
+        assert win._hist_n == HISTORY_POINTS
+
     def test_controls_restart_and_persist(self, qtbot, config_dir):
         from monitor.window.app import LiveWindow
 

@@ -32,6 +32,8 @@ FRAME_MS = 50  # 20 frames/s
 TEXT_EVERY_FRAMES = 4  # text 5 times a second ...
 TEXT_MIN_FRAMES = 3  # ... or at once for a new reading, at most 6.7 times a second
 HISTORY_EVERY_FRAMES = 8  # the history strip (a trend) 2.5 times a second
+VIEW_MIN_FRAMES = 5  # spectrum, waterfall and waveform at most 4 times a second
+STABILITY_EVERY_S = 1.0  # the drift fit behind the stability line, once a second
 HISTORY_POINTS = 3600
 HISTORY_SYMBOLS_MAX = 300
 LEFT_AXIS_PX = 72
@@ -115,6 +117,9 @@ class LiveWindow(QtWidgets.QMainWindow):
         self._text_frame = 0
         self._text_seq = 0
         self._history_frame = 0
+        self._view_frame = 0
+        self._pending_view = None  # the newest GateView not yet drawn
+        self._stability_at = -math.inf  # monotonic time of the last drift fit
         self._seq = 0
         self._vseq = 0
         self._hist_t = np.zeros(HISTORY_POINTS)
@@ -122,6 +127,9 @@ class LiveWindow(QtWidgets.QMainWindow):
         self._hist_n = 0
         self._hist_ref: float | None = None
         self._hist_symbols = True
+        self._hist_yrange = (math.inf, -math.inf)
+        self._hist_xrange = (math.inf, -math.inf)
+        self._hist_shown = None  # the (x, y) ranges last given to the plot
         self._history_dirty = False
         self._wf = np.full((WATERFALL_ROWS, WATERFALL_COLS), WATERFALL_LEVELS_DB[0], np.float32)
         self._wf_span: tuple[float, float] | None = None
@@ -175,7 +183,6 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.spectrum_plot.setYRange(-140, 0)
         self.spectrum_plot.showGrid(x=True, y=True, alpha=0.2)
         self.spectrum_curve = self.spectrum_plot.plot(pen=pg.mkPen(COLOURS["trace"], width=1))
-        self.spectrum_curve.setClipToView(True)
         self.markers = []
         for _ in range(N_MARKERS):
             pen = pg.mkPen(COLOURS["marker"], style=QtCore.Qt.PenStyle.DashLine)
@@ -215,8 +222,11 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.history_curve = self.history_plot.plot(
             pen=pg.mkPen(COLOURS["history"], width=1), symbol="o", symbolSize=3
         )
-        self.history_curve.setClipToView(True)
-        self.history_curve.setDownsampling(auto=True, method="peak")
+        # The strip always shows all of its (at most HISTORY_POINTS) points, and
+        # _draw_history sets the ranges with the data: no clipping, no view-dependent
+        # downsampling and no auto-range, each of which would redo the curve at paint
+        # time and ask for a second paint of the strip.
+        self.history_plot.disableAutoRange()
         for plot in (self.spectrum_plot, self.waterfall_plot, self.wave_plot, self.history_plot):
             for name in ("left", "bottom"):
                 # Axis text is the dearest part of a frame; redraw it only when the ticks
@@ -488,11 +498,16 @@ class LiveWindow(QtWidgets.QMainWindow):
         self.hold.reset()
         self._hist_n = 0
         self._hist_ref = None
+        self._hist_yrange = (math.inf, -math.inf)
+        self._hist_xrange = (math.inf, -math.inf)
+        self._hist_shown = None  # the (x, y) ranges last given to the plot
         self._wave_span = 0.0
         self._wave_unit = ""
         self._wave_len = 0.0
         self._wf[:] = WATERFALL_LEVELS_DB[0]
         self._wf_span = None
+        self._pending_view = None
+        self._stability_at = -math.inf
         self._error_text = ""
         self.pause_button.setChecked(False)
         try:
@@ -600,9 +615,17 @@ class LiveWindow(QtWidgets.QMainWindow):
             if views:
                 self._vseq = views[-1][0]
                 for _seq, v in views:
-                    self._add_waterfall_row(v)
-                self._draw_view(views[-1][1])
-                self.waterfall.setImage(self._wf, autoLevels=False)
+                    self._add_waterfall_row(v)  # every gate keeps its row ...
+                self._pending_view = views[-1][1]
+        if self._pending_view is not None and (
+            self.frames - self._view_frame >= VIEW_MIN_FRAMES or (s is not None and s.done)
+        ):
+            # ... but the plots are redrawn at most 4 times a second: drawing is most of
+            # the window's CPU, and the eye gains nothing from a faster spectrum
+            self._view_frame = self.frames
+            self._draw_view(self._pending_view)
+            self._pending_view = None
+            self.waterfall.setImage(self._wf, autoLevels=False)
         since = self.frames - self._text_frame
         fresh = self.latest is not None and self.latest.seq != self._text_seq
         # a new reading is shown at once unless text changed very recently; otherwise
@@ -641,7 +664,29 @@ class LiveWindow(QtWidgets.QMainWindow):
         if symbols != self._hist_symbols:
             self._hist_symbols = symbols
             self.history_curve.setSymbol("o" if symbols else None)
-        self.history_curve.setData(self._hist_t[:n], self._hist_f[:n] - self._hist_ref)
+        t, y = self._hist_t[:n], self._hist_f[:n] - self._hist_ref
+        self.history_curve.setData(t, y)
+        # Ranges set here, in the same pass as the data: pyqtgraph's auto-range would
+        # find the new bounds at paint time and ask for a second paint of the strip.
+        lo, hi = float(y.min()), float(y.max())
+        y_lo, y_hi = self._hist_yrange
+        if lo < y_lo or hi > y_hi or (hi - lo) < 0.25 * (y_hi - y_lo):
+            # a new scale only when the trace leaves it or shrinks to a quarter of it
+            pad = 0.1 * (hi - lo) if hi > lo else max(1e-6, 1e-9 * abs(self._hist_f[0]))
+            self._hist_yrange = (lo - pad, hi + pad)
+        # The time axis moves in steps, like a chart recorder's paper: room is left at
+        # the right for a tenth of the span, and the axis (whose re-ticking is most of
+        # the strip's cost) is redrawn only when the trace reaches the edge or the
+        # oldest points leave a tenth of the strip empty at the left.
+        t0, t1 = float(t[0]), float(t[-1])
+        x_lo, x_hi = self._hist_xrange
+        if t1 > x_hi or t0 < x_lo or t0 - x_lo > 0.1 * (x_hi - x_lo):
+            self._hist_xrange = (t0, t1 + 0.1 * max(t1 - t0, 1.0))
+        if (self._hist_xrange, self._hist_yrange) != self._hist_shown:
+            self._hist_shown = (self._hist_xrange, self._hist_yrange)
+            self.history_plot.setRange(
+                xRange=self._hist_xrange, yRange=self._hist_yrange, padding=0
+            )
 
     def _add_waterfall_row(self, v) -> None:
         f, db = v.spectrum_hz, v.spectrum_db
@@ -770,6 +815,10 @@ class LiveWindow(QtWidgets.QMainWindow):
         if n < 3:
             self.stability.setText("stability: —")
             return
+        now = time.monotonic()
+        if now - self._stability_at < STABILITY_EVERY_S:
+            return  # a fit over up to an hour of gates: once a second is plenty
+        self._stability_at = now
         try:
             from dsp.stability import fit_drift
         except ImportError:
