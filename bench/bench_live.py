@@ -18,6 +18,13 @@ Targets: <= 15 % of a core at 48 kHz, <= 40 % at 192 kHz I/Q, latency <= 150 ms 
 
     python bench/bench_live.py --minutes 1      # while developing
     make bench                                  # 10 minutes per input
+    python bench/bench_live.py --soak 60        # 1-hour soak of the 48 kHz live path
+
+The soak runs the 48 kHz input alone at the 0.1 s gate (ten gates a second through the
+engine, the session's queues and the window) and samples, each minute, the resident
+memory, the readings of that minute and the dropped-block count. It reports memory growth
+per hour after the first ten minutes, and the first and last tenth of the readings
+compared in combined standard errors: "readings unchanged" means within 3.
 """
 
 from __future__ import annotations
@@ -105,8 +112,23 @@ def _settings(mode: str, gate_s: float = GATE_S) -> AnalysisSettings:
     return AnalysisSettings(mode=mode, gate_s=gate_s, fm=fm)
 
 
-def run_case(mode: str, fs_hz: float, seconds: float, gate_s: float = GATE_S) -> dict:
-    """Run the window offscreen on a paced synthetic input; returns the figures."""
+def rss_mib() -> float:
+    """Resident memory of this process, MiB (Linux /proc; NaN elsewhere)."""
+    try:
+        with open("/proc/self/statm") as f:
+            return int(f.read().split()[1]) * os.sysconf("SC_PAGE_SIZE") / 2**20
+    except (OSError, ValueError, AttributeError):
+        return math.nan
+
+
+def run_case(
+    mode: str, fs_hz: float, seconds: float, gate_s: float = GATE_S, *, sample_s: float = 0.0
+) -> dict:
+    """Run the window offscreen on a paced synthetic input; returns the figures.
+
+    With `sample_s` > 0, every `sample_s` seconds of the run the process's resident
+    memory and the frequencies of the readings since the last sample are kept, under
+    "samples" as (seconds into the run, RSS MiB, frequencies, dropped blocks)."""
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     from pyqtgraph.Qt import QtCore, QtWidgets
 
@@ -123,6 +145,21 @@ def run_case(mode: str, fs_hz: float, seconds: float, gate_s: float = GATE_S) ->
     win = LiveWindow(config, save_settings=False, session_factory=factory)
     win.show()
     marks: dict[str, float] = {}
+    samples: list[tuple[float, float, np.ndarray, int]] = []
+    seen = {"seq": 0}
+
+    def sample():
+        # the session keeps its readings by sequence number, so reading them here
+        # takes nothing from the window
+        new = win.session.readings_since(seen["seq"])
+        if new:
+            seen["seq"] = new[-1].seq
+        f = np.array([lr.reading.frequency_hz for lr in new], float)
+        t = time.monotonic() - marks["wall"]
+        samples.append((t, rss_mib(), f, win.session.stats.dropped_blocks))
+
+    sampler = QtCore.QTimer()
+    sampler.timeout.connect(sample)
 
     def begin():
         win.latencies.clear()
@@ -131,10 +168,14 @@ def run_case(mode: str, fs_hz: float, seconds: float, gate_s: float = GATE_S) ->
             time.process_time(),
             win.frames,
         )
+        if sample_s > 0:
+            seen["seq"] = win._seq
+            sampler.start(int(sample_s * 1000))
 
     QtCore.QTimer.singleShot(int(warmup_s * 1000), begin)
     QtCore.QTimer.singleShot(int((warmup_s + seconds) * 1000), app.quit)
     app.exec()
+    sampler.stop()
     wall = time.monotonic() - marks["wall"]
     cpu = time.process_time() - marks["cpu"]
     frames = win.frames - marks["frames"]
@@ -158,7 +199,46 @@ def run_case(mode: str, fs_hz: float, seconds: float, gate_s: float = GATE_S) ->
         "dropped_blocks": stats.dropped_blocks,
         "queue_peak": stats.queue_peak,
         "error": None if error is None else f"{type(error).__name__}: {error}",
+        "samples": samples,
     }
+
+
+def soak(minutes: float) -> int:
+    """The 1-hour live-path soak (48 kHz audio, 0.1 s gate, window offscreen)."""
+    print(f"== live-path soak: 48 kHz audio, {GATE_S:g} s gate, {minutes:g} minutes, "
+          f"window offscreen, {os.cpu_count()} CPUs ==")  # fmt: skip
+    r = run_case("audio", 48000.0, minutes * 60.0, GATE_S, sample_s=min(60.0, minutes * 6))
+    samples = r["samples"]
+    print(f"{'minute':>7} {'RSS MiB':>8} {'readings':>8} {'mean Hz':>16} {'dropped':>7}")
+    for t, rss, f, dropped in samples:
+        mean = f"{np.nanmean(f):16.9f}" if f.size else f"{'-':>16}"
+        print(f"{t / 60:7.1f} {rss:8.1f} {f.size:8d} {mean} {dropped:7d}")
+    t = np.array([s[0] for s in samples])
+    rss = np.array([s[1] for s in samples])
+    after = t >= min(600.0, 0.2 * t[-1])  # start-up and the first caches are not a leak
+    growth = np.polyfit(t[after] / 3600.0, rss[after], 1)[0] if after.sum() >= 2 else math.nan
+    f = np.concatenate([s[2] for s in samples])
+    f = f[np.isfinite(f)]
+    k = max(2, f.size // 10)
+    a, b = f[:k], f[-k:]
+    se = math.hypot(a.std(ddof=1) / math.sqrt(a.size), b.std(ddof=1) / math.sqrt(b.size))
+    shift = (b.mean() - a.mean()) / se if se > 0 else 0.0
+    ok_drop = r["dropped_blocks"] == 0 and r["error"] is None
+    ok_mem = not growth > 2.0  # MiB per hour; NaN (no /proc) is not a failure
+    ok_read = abs(shift) <= 3.0
+    print(f"CPU {100 * r['cpu_share']:.1f}% of a core, {r['fps']:.1f} frames/s, latency median "
+          f"{1000 * r['latency_median_s']:.0f} ms, p95 {1000 * r['latency_p95_s']:.0f} ms, "
+          f"max {1000 * r['latency_max_s']:.0f} ms")  # fmt: skip
+    print(f"memory: {rss[0]:.1f} MiB at the first sample, {rss[-1]:.1f} MiB at the end, "
+          f"{growth:+.2f} MiB/h after the first tenth; {_verdict(ok_mem)}")  # fmt: skip
+    print(f"readings: {r['readings']} gates; first tenth {a.mean():.9f} Hz, last tenth "
+          f"{b.mean():.9f} Hz, {shift:+.2f} combined standard errors; "
+          f"{_verdict(ok_read)}")  # fmt: skip
+    print(f"dropped blocks {r['dropped_blocks']}, queue peak {r['queue_peak']}; "
+          f"{_verdict(ok_drop)}")  # fmt: skip
+    if r["error"]:
+        print(f"stopped: {r['error']}")
+    return 0 if ok_drop and ok_mem and ok_read else 1
 
 
 def _verdict(ok: bool) -> str:
@@ -173,7 +253,15 @@ def main(argv: list[str] | None = None) -> int:
         default=float(os.environ.get("SWINGMETER_BENCH_LIVE_MINUTES", 10)),
         help="run length per configuration (default: 10, or $SWINGMETER_BENCH_LIVE_MINUTES)",
     )
+    p.add_argument(
+        "--soak",
+        type=float,
+        metavar="MINUTES",
+        help="run only the live-path soak for MINUTES (48 kHz audio, 0.1 s gate)",
+    )
     args = p.parse_args(argv if argv is not None else [])
+    if args.soak:
+        return soak(args.soak)
     seconds = args.minutes * 60.0
     cases = [("audio", 48000.0)]
     if iq_supported():
