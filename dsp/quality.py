@@ -31,6 +31,7 @@ import numpy as np
 
 __all__ = [
     "LevelFigures",
+    "QualityAccumulator",
     "QualityFigures",
     "combine_quality",
     "measure_level",
@@ -88,6 +89,11 @@ class LevelFigures:
 
 def _as_real_block(x: object, name: str = "x") -> np.ndarray:
     """Return x as a 1-D finite float64 array, or raise TypeError / ValueError."""
+    return _real_block_and_sum(x, name)[0]
+
+
+def _real_block_and_sum(x: object, name: str = "x") -> tuple[np.ndarray, float]:
+    """`_as_real_block` and the sum of the samples it took to check them."""
     arr = np.asarray(x)
     if arr.dtype.kind not in "fiu":
         raise TypeError(f"{name} must be a real numeric array, got dtype {arr.dtype}")
@@ -97,12 +103,13 @@ def _as_real_block(x: object, name: str = "x") -> np.ndarray:
         raise ValueError(f"{name} is empty (0 samples); need at least one sample")
     arr = arr.astype(np.float64, copy=False)
     # One pass that is needed anyway; non-finite values poison the sum.
-    if not math.isfinite(float(arr.sum())):
+    total = float(arr.sum())
+    if not math.isfinite(total):
         bad = int(np.count_nonzero(~np.isfinite(arr)))
         if bad:
             raise ValueError(f"{name} holds {bad} non-finite samples (NaN or inf)")
         raise ValueError(f"{name} holds values too large to sum in float64")
-    return arr
+    return arr, total
 
 
 def _check_positive(name: str, value: object) -> float:
@@ -157,19 +164,22 @@ def measure_level(
     cf = _check_positive("clip_fraction", clip_fraction)
     if cf > 1.0:
         raise ValueError(f"clip_fraction={clip_fraction} must be in (0, 1]")
-    a = _as_real_block(x)
+    a, total = _real_block_and_sum(x)
     n = a.size
     mean_sq = float(np.dot(a, a)) / n
-    peak = float(np.max(np.abs(a)))
+    # four reductions and no temporaries: max and min give the peak, and the clipped
+    # samples are counted only when the peak says there are some
+    peak = max(float(a.max()), -float(a.min()))
     with np.errstate(divide="ignore"):
         rms_dbfs = float(10.0 * np.log10(2.0 * mean_sq / fs_**2)) if mean_sq > 0 else -math.inf
         peak_dbfs = float(20.0 * np.log10(peak / fs_)) if peak > 0 else -math.inf
-    clipped = int(np.count_nonzero(np.abs(a) >= cf * fs_))
+    limit = cf * fs_
+    clipped = int(np.count_nonzero(np.abs(a) >= limit)) if peak >= limit else 0
     return LevelFigures(
         rms_dbfs=rms_dbfs,
         peak_dbfs=peak_dbfs,
         clipped_samples=clipped,
-        dc_offset=float(a.mean()),
+        dc_offset=total / n,
         n_samples=n,
     )
 
@@ -698,38 +708,98 @@ def combine_quality(figures: Sequence[QualityFigures]) -> QualityFigures:
     figs = list(figures)
     if not figs:
         raise ValueError("figures is empty; need at least one QualityFigures")
+    acc = QualityAccumulator()
     for f in figs:
+        acc.add(f)
+    return acc.result()
+
+
+_SUMMED = (
+    "fundamental_hz",
+    "fundamental_power",
+    "harmonic_power",
+    "noise_power",
+    "hum_power",
+    "dc_power",
+    "total_power",
+)
+
+
+class QualityAccumulator:
+    """`combine_quality` one gate at a time, in constant memory and time per gate.
+
+    ``acc.add(f)`` for each gate, then ``acc.result()`` gives what ``combine_quality``
+    gives for the whole list: sample-weighted mean powers (the spur power over the gates
+    whose spurs were searched), ratios recomputed from them.
+
+    Examples
+    --------
+    >>> n = np.arange(4800)
+    >>> x = 0.5 * np.sin(2 * np.pi * 1000 * n / 48000) + 1e-3 * np.cos(n)
+    >>> acc = QualityAccumulator()
+    >>> for _ in range(3):
+    ...     acc.add(measure_quality(x, 48000, fundamental_hz=1000))
+    >>> acc.result().n_samples, acc.gates
+    (14400, 3)
+    """
+
+    def __init__(self) -> None:
+        self.gates = 0
+        self._n = 0
+        self._fs: float | None = None
+        self._sums = dict.fromkeys(_SUMMED, 0.0)
+        self._spur_n = 0
+        self._spur_sum = 0.0
+        self._n_harm: int | None = None
+        self._hum_gate: QualityFigures | None = None
+        self._spur_gate: QualityFigures | None = None
+        self._first: QualityFigures | None = None
+
+    def add(self, f: QualityFigures) -> None:
+        """Add one gate's figures (or a summary of several, weighted by its n_samples)."""
         if not isinstance(f, QualityFigures):
             raise TypeError(f"figures must hold QualityFigures, got {type(f).__name__}")
-    rates = {f.fs_hz for f in figs}
-    if len(rates) > 1:
-        raise ValueError(f"figures come from different sample rates fs_hz={sorted(rates)}")
-    wts = np.array([f.n_samples for f in figs], dtype=np.float64)
-    wts /= wts.sum()
+        if self._fs is not None and f.fs_hz != self._fs:
+            raise ValueError(
+                f"figures come from different sample rates fs_hz={sorted({self._fs, f.fs_hz})}"
+            )
+        self._fs = f.fs_hz
+        self.gates += 1
+        w = f.n_samples
+        self._n += w
+        sums = self._sums
+        for field in _SUMMED:
+            sums[field] += w * getattr(f, field)
+        if math.isfinite(f.spur_power):
+            self._spur_n += w
+            self._spur_sum += w * f.spur_power
+            if self._spur_gate is None or f.spur_power > self._spur_gate.spur_power:
+                self._spur_gate = f
+        self._n_harm = (
+            f.n_harmonics_used if self._n_harm is None else min(self._n_harm, f.n_harmonics_used)
+        )
+        key = (f.hum_hz is not None, f.hum_power)
+        if self._hum_gate is None or key > (
+            self._hum_gate.hum_hz is not None,
+            self._hum_gate.hum_power,
+        ):
+            self._hum_gate = f
+        if self._first is None:
+            self._first = f
 
-    def avg(field: str) -> float:
-        return float(np.dot(wts, [getattr(f, field) for f in figs]))
-
-    hum_gate = max(figs, key=lambda f: (f.hum_hz is not None, f.hum_power))
-    searched = [f for f in figs if math.isfinite(f.spur_power)]
-    spur_gate = max(searched, key=lambda f: f.spur_power) if searched else figs[0]
-    if searched:
-        sw = np.array([f.n_samples for f in searched], dtype=np.float64)
-        spur_avg = float(np.dot(sw / sw.sum(), [f.spur_power for f in searched]))
-    else:
-        spur_avg = math.nan
-    return _figures_from_powers(
-        fundamental_hz=avg("fundamental_hz"),
-        fs_hz=figs[0].fs_hz,
-        n_samples=int(sum(f.n_samples for f in figs)),
-        n_harmonics_used=min(f.n_harmonics_used for f in figs),
-        spur_hz=spur_gate.spur_hz,
-        hum_hz=hum_gate.hum_hz,
-        fundamental_power=avg("fundamental_power"),
-        harmonic_power=avg("harmonic_power"),
-        noise_power=avg("noise_power"),
-        hum_power=avg("hum_power"),
-        spur_power=spur_avg,
-        dc_power=avg("dc_power"),
-        total_power=avg("total_power"),
-    )
+    def result(self) -> QualityFigures:
+        """The combined figures; ValueError before the first `add`."""
+        if not self.gates:
+            raise ValueError("figures is empty; need at least one QualityFigures")
+        n = self._n
+        mean = {k: v / n for k, v in self._sums.items()}
+        spur_gate = self._spur_gate or self._first
+        return _figures_from_powers(
+            fs_hz=self._fs,
+            n_samples=int(n),
+            n_harmonics_used=self._n_harm,
+            spur_hz=spur_gate.spur_hz,
+            hum_hz=self._hum_gate.hum_hz,
+            spur_power=self._spur_sum / self._spur_n if self._spur_n else math.nan,
+            **mean,
+        )

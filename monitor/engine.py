@@ -287,7 +287,7 @@ class AudioProcessor:
         # quality meter's powers folded into one running figure: memory stays small
         # over day-long sessions
         self._tones = _GateTable()
-        self._quality_acc = None
+        self._quality = dq.QualityAccumulator()
         self._n_quality = 0
         self._levels = _LevelAccumulator()
         self._sos = None
@@ -361,11 +361,7 @@ class AudioProcessor:
                         sfdr=self._n_quality % SFDR_EVERY_GATES == 0,
                     )
                     self._n_quality += 1
-                    self._quality_acc = (
-                        qual
-                        if self._quality_acc is None
-                        else dq.combine_quality([self._quality_acc, qual])
-                    )
+                    self._quality.add(qual)
             else:
                 self._track_hz = None
         if freq is None:
@@ -428,7 +424,9 @@ class AudioProcessor:
         )
 
     def quality_summary(self) -> QualitySummary:
-        return quality_summary(self._quality_acc, self.settings.filter)
+        return quality_summary(
+            self._quality.result() if self._quality.gates else None, self.settings.filter
+        )
 
 
 def quality_fields(q) -> dict:

@@ -298,7 +298,7 @@ class FmProcessor:
         self._hist = dfm.DeviationHistogram(bin_hz=1.0)
         self._power: dfm.ModulationPowerMeter | None = None
         self._spec: dspec.SpectrumAverager | None = None
-        self._quality_acc = None
+        self._quality = dq.QualityAccumulator()
         self._last_tone: dt.ToneEstimate | None = None
         self._tone_w = 0.0  # sum of 1/sigma^2 of the tone frequencies
         self._tone_wf = 0.0
@@ -477,11 +477,7 @@ class FmProcessor:
                 self._tone_n += 1
                 if 0 < tone.frequency_hz < fs_out / 2:
                     qual = dq.measure_quality(dev_f, fs_out, fundamental_hz=tone.frequency_hz)
-                    self._quality_acc = (
-                        qual
-                        if self._quality_acc is None
-                        else dq.combine_quality([self._quality_acc, qual])
-                    )
+                    self._quality.add(qual)
             else:
                 tone = None
         if tone is None:
@@ -586,7 +582,11 @@ class FmProcessor:
 
         # the demodulated audio's figures; hum is not a figure of the modulation
         return replace(
-            quality_summary(self._quality_acc, self.post_filter), hum_hz=None, hum_db=None
+            quality_summary(
+                self._quality.result() if self._quality.gates else None, self.post_filter
+            ),
+            hum_hz=None,
+            hum_db=None,
         )
 
     def fm_summary(self) -> FmSummary | None:

@@ -163,5 +163,5 @@ class TestLongSessions:
         p = eng.processor
         assert eng.gates == 2000
         assert p._tones._a.nbytes <= 2 * 2048 * 7 * 8
-        assert p._quality_acc is not None  # one running figure, not a list
+        assert p._quality.gates == 2000  # running sums, not a list of figures
         assert eng.summary().tone.frequency_hz == pytest.approx(100.25, abs=1e-4)

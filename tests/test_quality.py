@@ -13,6 +13,7 @@ import pytest
 
 from dsp.quality import (
     LevelFigures,
+    QualityAccumulator,
     QualityFigures,
     combine_quality,
     measure_level,
@@ -383,3 +384,28 @@ class TestSpurSearchSkipped:
         both = combine_quality([full, quick, quick])
         assert both.sfdr_db == pytest.approx(full.sfdr_db, abs=1e-9)
         assert np.isnan(combine_quality([quick, quick]).sfdr_db)
+
+    def test_accumulator_gate_by_gate_equals_the_whole_list(self):
+        # A running summary (as the engine keeps) must give what combine_quality gives
+        # for all gates at once, the spur power included: it averages over the searched
+        # gates only, however many unsearched gates lie between them. Reference: the
+        # plain mean of the two searched gates' spur powers.
+        rng = np.random.default_rng(4)
+        figs = []
+        for k in range(17):
+            spur = 10 ** (-3 - k / 10)
+            x = tone(1000.0, 9600, 0.5) + spur * tone(7300.0, 9600, 1.0)
+            x = x + 1e-4 * (1 + k) * rng.standard_normal(9600)
+            figs.append(measure_quality(x, FS, fundamental_hz=1000.0, sfdr=k % 8 == 0))
+        acc = QualityAccumulator()
+        for f in figs:
+            acc.add(f)
+        whole, running = combine_quality(figs), acc.result()
+        for field in ("snr_db", "sinad_db", "thd_percent", "sfdr_db", "fundamental_hz"):
+            assert getattr(running, field) == pytest.approx(getattr(whole, field), rel=1e-12)
+        searched = [f.spur_power for f in figs if np.isfinite(f.spur_power)]
+        assert len(searched) == 3
+        assert running.spur_power == pytest.approx(np.mean(searched), rel=1e-12)
+        assert acc.gates == 17 and running.n_samples == 17 * 9600
+        with pytest.raises(ValueError, match="empty"):
+            QualityAccumulator().result()
