@@ -109,6 +109,16 @@ class _NonFinite:
         )
 
 
+#: libsndfile subtypes read as integers: (numpy dtype, scale to full scale 1.0)
+_INTEGER_READS = {
+    "PCM_S8": ("int16", 2.0**-15),
+    "PCM_U8": ("int16", 2.0**-15),
+    "PCM_16": ("int16", 2.0**-15),
+    "PCM_24": ("int32", 2.0**-31),
+    "PCM_32": ("int32", 2.0**-31),
+}
+
+
 class _BlockReader:
     """Common iteration: counts frames, replaces non-finite samples by silence.
 
@@ -122,6 +132,8 @@ class _BlockReader:
 
     meta: StreamMeta
     warnings: list[str]
+    #: True when every sample comes from an integer (PCM) file: none can be non-finite
+    _integer_samples = False
 
     def _raw_blocks(self) -> Iterator[np.ndarray]:  # pragma: no cover - abstract
         raise NotImplementedError
@@ -136,6 +148,10 @@ class _BlockReader:
         for samples in self._raw_blocks():
             n = samples.shape[0]
             if n == 0:
+                continue
+            if self._integer_samples:  # read from integers: finite and in range
+                yield Block(samples, start, self.meta)
+                start += n
                 continue
             with np.errstate(invalid="ignore"):
                 finite = np.abs(samples) <= MAX_ABS_SAMPLE  # False for NaN and Inf too
@@ -250,6 +266,11 @@ class SoundFileSource(_BlockReader):
         self.swap_iq = swap_iq
         self.block_frames = block_frames
         self._read_frames = max(1, min(block_frames, MAX_READ_SAMPLES // max(channels, 1)))
+        # PCM is read as integers and scaled here: the same values libsndfile's own
+        # conversion gives (k / 2^15 for 8- and 16-bit, k / 2^31 for the left-justified
+        # 24- and 32-bit), in half the time, and none of them can be NaN or out of range
+        self._int_read = _INTEGER_READS.get(str(info.subtype))
+        self._integer_samples = self._int_read is not None
         if channels == 2 and mode != "iq" and _looks_like_iq(self._f):
             self.warnings.append(
                 "the two channels look like I/Q (equal level, 90 degrees apart): "
@@ -274,14 +295,20 @@ class SoundFileSource(_BlockReader):
             f.seek(0)
         except (sf.LibsndfileError, RuntimeError) as exc:
             raise InputError(f"{self.path}: cannot rewind ({exc})") from None
+        dtype, scale = self._int_read or ("float64", None)
+        mono = self.meta.channels == 1
         while True:
             try:
-                data = f.read(self._read_frames, dtype="float64", always_2d=True)
+                data = f.read(self._read_frames, dtype=dtype, always_2d=not mono)
             except (sf.LibsndfileError, RuntimeError) as exc:
                 raise InputError(f"{self.path}: read failed ({exc})") from None
             if data.shape[0] == 0:
                 return
-            if self.mode == "iq":
+            if scale is not None:
+                data = np.multiply(data, scale, dtype=np.float64)
+            if mono:
+                yield data
+            elif self.mode == "iq":
                 i, q = data[:, 0], data[:, 1]
                 if self.swap_iq:
                     i, q = q, i

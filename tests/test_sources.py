@@ -54,6 +54,27 @@ class TestSoundFileSource:
         assert y.shape == x.shape
         assert np.max(np.abs(y - x)) <= step
 
+    @pytest.mark.parametrize("channels", [1, 2])
+    @pytest.mark.parametrize("subtype", ["PCM_S8", "PCM_U8", "PCM_16", "PCM_24", "PCM_32"])
+    def test_integer_reads_equal_libsndfile_conversion(self, tmp_path, subtype, channels):
+        # PCM is read as integers and scaled by swingmeter; the values must be exactly
+        # those of libsndfile's own conversion to float64 (the reference), full-scale
+        # codes included
+        fmt = "AIFF" if subtype == "PCM_S8" else "WAV"  # WAV has no signed 8-bit
+        x = np.clip(reference_signal() * 2.2, -1.0, 1.0)
+        x = np.stack([x, -x[::-1]], axis=1)[:, :channels]
+        path = tmp_path / f"i.{fmt.lower()}"
+        sf.write(path, x, 8000, format=fmt, subtype=subtype)
+        want, _ = sf.read(path, dtype="float64", always_2d=True)
+        for ch in range(channels):
+            got = read_all(SoundFileSource(path, channel=ch, block_frames=777))
+            np.testing.assert_array_equal(got, want[:, ch])
+        if channels == 2:
+            mixed = read_all(SoundFileSource(path, mix=True, block_frames=777))
+            np.testing.assert_array_equal(mixed, want.mean(axis=1))
+            iq = read_all(SoundFileSource(path, mode="iq", block_frames=777))
+            np.testing.assert_array_equal(iq, want[:, 0] + 1j * want[:, 1])
+
     # sox (an independent writer) converts one 16-bit file into every variant; all read
     # back as the same samples to within each variant's quantisation.
     SOX_VARIANTS = (
