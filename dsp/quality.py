@@ -787,6 +787,36 @@ class QualityAccumulator:
         if self._first is None:
             self._first = f
 
+    def merge(self, other: QualityAccumulator) -> None:
+        """Add every gate of `other` (as if each had been added here)."""
+        if not other.gates:
+            return
+        if self._fs is not None and other._fs != self._fs:
+            raise ValueError(
+                f"figures come from different sample rates fs_hz={sorted({self._fs, other._fs})}"
+            )
+        if not self.gates:
+            self.__dict__.update(other.__dict__, _sums=dict(other._sums))
+            return
+        self.gates += other.gates
+        self._n += other._n
+        for k, v in other._sums.items():
+            self._sums[k] += v
+        self._spur_n += other._spur_n
+        self._spur_sum += other._spur_sum
+        sg = other._spur_gate
+        if sg is not None and (
+            self._spur_gate is None or sg.spur_power > self._spur_gate.spur_power
+        ):
+            self._spur_gate = sg
+        self._n_harm = min(self._n_harm, other._n_harm)
+        hg = other._hum_gate
+        if (hg.hum_hz is not None, hg.hum_power) > (
+            self._hum_gate.hum_hz is not None,
+            self._hum_gate.hum_power,
+        ):
+            self._hum_gate = hg
+
     def result(self) -> QualityFigures:
         """The combined figures; ValueError before the first `add`."""
         if not self.gates:

@@ -263,6 +263,13 @@ class _LevelAccumulator:
         self.peak = max(self.peak, 10 ** (lvl.peak_dbfs / 20) * self.full_scale)
         self.clipped += int(lvl.clipped_samples)
 
+    def merge(self, other: _LevelAccumulator) -> None:
+        self.n += other.n
+        self.sum += other.sum
+        self.sum2 += other.sum2
+        self.peak = max(self.peak, other.peak)
+        self.clipped += other.clipped
+
     def summary(self) -> LevelSummary:
         n = max(self.n, 1)
         rms = math.sqrt(self.sum2 / n)
@@ -288,7 +295,11 @@ class AudioProcessor:
         # over day-long sessions
         self._tones = _GateTable()
         self._quality = dq.QualityAccumulator()
-        self._n_quality = 0
+        # the spur search runs on every SFDR_EVERY_GATES-th gate of the stream, and on
+        # the first gate with a tone: which gates those are depends only on the gate's
+        # index, so a recording analysed in parts (monitor.parallel) searches the same
+        self._gate_index = 0
+        self._spur_due = True
         self._levels = _LevelAccumulator()
         self._sos = None
         self._zi = None
@@ -329,6 +340,8 @@ class AudioProcessor:
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool) -> Reading:
         s = self.settings
         k = self.meta.clock_factor
+        search = self._spur_due or self._gate_index % SFDR_EVERY_GATES == 0
+        self._gate_index += 1
         lvl = dq.measure_level(x)
         self._levels.add_level(lvl)
         xf = self.filtered(x)
@@ -358,9 +371,9 @@ class AudioProcessor:
                         n_harmonics=s.n_harmonics,
                         mains=_mains_arg(s.mains),
                         # the spur search is the costliest part: a sample of gates
-                        sfdr=self._n_quality % SFDR_EVERY_GATES == 0,
+                        sfdr=search,
                     )
-                    self._n_quality += 1
+                    self._spur_due = False
                     self._quality.add(qual)
             else:
                 self._track_hz = None
@@ -427,6 +440,27 @@ class AudioProcessor:
         return quality_summary(
             self._quality.result() if self._quality.gates else None, self.settings.filter
         )
+
+    def start_at(self, gate_index: int) -> None:
+        """Make this processor the one for a part of a stream that starts at gate
+        `gate_index` (its first gate is not the stream's first spur search)."""
+        self._gate_index = gate_index
+        self._spur_due = gate_index == 0
+
+    def absorb(self, later: AudioProcessor) -> None:
+        """Append the gates of `later`, which measured the part of the stream right after
+        this one's: afterwards the summaries are those of one processor that measured
+        both parts."""
+        if later._dev is not None or self._dev is not None:
+            raise ValueError("audio deviation figures cannot be joined from parts")
+        self._tones.extend(later._tones)
+        self._quality.merge(later._quality)
+        self._levels.merge(later._levels)
+        self.no_tone_gates += later.no_tone_gates
+        self._gate_index = later._gate_index
+        self._spur_due = self._spur_due and later._spur_due
+        self._track_hz, self._track_snr = later._track_hz, later._track_snr
+        self._zi = later._zi
 
 
 def quality_fields(q) -> dict:
@@ -571,7 +605,7 @@ class Engine:
         self.keep_readings = keep_readings
         self.readings: list[Reading] = []
         self.gates = 0  # gates measured, whether or not their readings are kept
-        self.gate_n = max(16, int(round(self.settings.gate_s * meta.fs_hz)))
+        self.gate_n = _gate_n(self.settings, meta)
         dtype = np.complex128 if meta.mode == "iq" else np.float64
         self._buf = np.empty(self.gate_n, dtype=dtype)
         self._fill = 0
@@ -644,6 +678,20 @@ class Engine:
                 out.append(self._emit(self._buf[: self._fill].copy()))
         self._fill = 0
         return out
+
+    def absorb(self, later: Engine) -> None:
+        """Join the engine that measured the part of the stream right after this one's
+        (both started on a gate boundary): readings, counts, warnings and summaries
+        become those of one engine that measured both parts. Audio mode only."""
+        absorb = getattr(self.processor, "absorb", None)
+        if absorb is None:
+            raise ValueError(f"{self.meta.mode} mode readings cannot be joined from parts")
+        absorb(later.processor)
+        self.readings.extend(later.readings)
+        self.gates += later.gates
+        self.frames += later.frames
+        self.warnings.extend(w for w in later.warnings if w not in self.warnings)
+        self._next = later._next
 
     def extra(self) -> dict:
         """Mode-specific summary sections (`fm`, `iq`) as JSON-able dicts."""
@@ -728,11 +776,15 @@ def analyze_file(
     meta: dict | None = None,
     progress: Callable[[int, int | None], None] | None = None,
     on_view: Callable[[GateView], None] | None = None,
+    jobs: int | None = 1,
 ) -> Analysis:
     """Analyse one recording (WAV/RF64/W64/SigMF) and return readings and summary.
 
     `on_view` receives each gate's GateView (spectrum, markers, waveform) for displays
-    and reports; without it no view is computed."""
+    and reports; without it no view is computed. `jobs` > 1 lets a long integer-PCM
+    recording in audio mode be analysed in that many processes (`monitor.parallel`;
+    None: as many as the CPUs and the recording's length make worth it); the readings
+    and summary are those of one process, to rounding."""
     from monitor.sources import open_source
 
     if settings is None:
@@ -740,12 +792,20 @@ def analyze_file(
     fields_ = dict(meta or {})
     if clock_ppm is not None:
         fields_["clock_ppm"] = float(clock_ppm)
-    with open_source(
-        path,
-        mode=settings.mode,
-        channel=channel,
-        mix=mix,
-        swap_iq=swap_iq,
-        meta=fields_,
-    ) as src:
+    source_kw = dict(mode=settings.mode, channel=channel, mix=mix, swap_iq=swap_iq, meta=fields_)
+    with open_source(path, **source_kw) as src:
+        if jobs != 1 and on_view is None:
+            from monitor import parallel
+
+            n = parallel.choose_jobs(jobs, src, settings)
+            if (
+                n > 1
+                and len(parallel.plan_parts(src.meta.frames, _gate_n(settings, src.meta), n)) > 1
+            ):
+                return parallel.analyze_parts(path, src, settings, source_kw, n, progress=progress)
         return run(src, settings, progress=progress, on_view=on_view)
+
+
+def _gate_n(settings: AnalysisSettings, meta: StreamMeta) -> int:
+    """Samples in one gate (as the Engine counts them)."""
+    return max(16, int(round(settings.gate_s * meta.fs_hz)))

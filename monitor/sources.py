@@ -287,23 +287,45 @@ class SoundFileSource(_BlockReader):
             **(meta or {}),
         )
 
-    def _raw_blocks(self) -> Iterator[np.ndarray]:
+    @property
+    def integer_samples(self) -> bool:
+        """True for integer PCM files: every sample is finite and within full scale."""
+        return self._integer_samples
+
+    def blocks_between(self, start: int, stop: int) -> Iterator[Block]:
+        """Blocks of frames [start, stop) (stream indices as in a whole read).
+
+        For integer PCM files only (`integer_samples`), whose samples need none of the
+        NaN/Inf bookkeeping of a whole read; a part of a recording analysed on its own
+        (as `monitor.parallel` does) reads its samples here.
+        """
+        if not self._integer_samples:
+            raise ValueError(f"{self.path}: blocks_between needs an integer PCM file")
+        pos = start
+        for samples in self._raw_blocks(start, stop):
+            yield Block(samples, pos, self.meta)
+            pos += samples.shape[0]
+
+    def _raw_blocks(self, start: int = 0, stop: int | None = None) -> Iterator[np.ndarray]:
         import soundfile as sf
 
         f = self._f
         try:
-            f.seek(0)
+            f.seek(start)
         except (sf.LibsndfileError, RuntimeError) as exc:
-            raise InputError(f"{self.path}: cannot rewind ({exc})") from None
+            raise InputError(f"{self.path}: cannot seek to frame {start} ({exc})") from None
         dtype, scale = self._int_read or ("float64", None)
         mono = self.meta.channels == 1
-        while True:
+        left = math.inf if stop is None else stop - start
+        while left > 0:
+            want = int(min(self._read_frames, left))
             try:
-                data = f.read(self._read_frames, dtype=dtype, always_2d=not mono)
+                data = f.read(want, dtype=dtype, always_2d=not mono)
             except (sf.LibsndfileError, RuntimeError) as exc:
                 raise InputError(f"{self.path}: read failed ({exc})") from None
             if data.shape[0] == 0:
                 return
+            left -= data.shape[0]
             if scale is not None:
                 data = np.multiply(data, scale, dtype=np.float64)
             if mono:

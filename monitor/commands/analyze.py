@@ -168,7 +168,28 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument("--readings", action="store_true", help="include every gate's reading")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.add_argument("--csv", metavar="PATH", help="write the readings to PATH as CSV")
+    p.add_argument(
+        "--jobs",
+        type=jobs_arg,
+        default=None,
+        metavar="N",
+        help="processes for one long recording: 'auto' (default: the CPUs, for an integer-PCM "
+        "recording in audio mode long enough to gain) or a number (1: one)",
+    )
     return p
+
+
+def jobs_arg(text: str) -> int | None:
+    """--jobs: 'auto' (None) or a whole number >= 1."""
+    if text.strip().lower() == "auto":
+        return None
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not 'auto' or a whole number") from None
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"{n} processes: need at least 1")
+    return n
 
 
 def mode_for(path: str | None, args) -> str:
@@ -251,6 +272,7 @@ def analyze_one(path: str, args, settings, progress=None):
         swap_iq=args.swap_iq,
         meta=meta,
         progress=progress,
+        jobs=getattr(args, "jobs", 1),
     )
 
 
