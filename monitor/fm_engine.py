@@ -12,7 +12,7 @@ averaged baseband spectrum, and the Bessel-line fit of single-tone modulation.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, replace
+from dataclasses import dataclass, fields, is_dataclass, replace
 
 import numpy as np
 
@@ -299,6 +299,8 @@ class FmProcessor:
         self._power: dfm.ModulationPowerMeter | None = None
         self._spec: dspec.SpectrumAverager | None = None
         self._quality = dq.QualityAccumulator()
+        self._gate_index = 0  # gates processed (the spur search follows it)
+        self._spur_due = True
         self._last_tone: dt.ToneEstimate | None = None
         self._tone_w = 0.0  # sum of 1/sigma^2 of the tone frequencies
         self._tone_wf = 0.0
@@ -394,8 +396,10 @@ class FmProcessor:
 
     # -- per gate ----------------------------------------------------------------------
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool):
-        from monitor.engine import Reading, quality_fields
+        from monitor.engine import SFDR_EVERY_GATES, Reading, quality_fields
 
+        gate_index = self._gate_index
+        self._gate_index += 1
         lvl = self._levels.add(x)
         if self._demod is None:
             self._start(x)
@@ -476,7 +480,13 @@ class FmProcessor:
                 self._tone_amp_sum += tone.amplitude
                 self._tone_n += 1
                 if 0 < tone.frequency_hz < fs_out / 2:
-                    qual = dq.measure_quality(dev_f, fs_out, fundamental_hz=tone.frequency_hz)
+                    # the spur search (the dearest part) on a sample of gates, as in audio
+                    # mode: every SFDR_EVERY_GATES-th gate and the first with a tone
+                    search = self._spur_due or gate_index % SFDR_EVERY_GATES == 0
+                    qual = dq.measure_quality(
+                        dev_f, fs_out, fundamental_hz=tone.frequency_hz, sfdr=search
+                    )
+                    self._spur_due = False
                     self._quality.add(qual)
             else:
                 tone = None
@@ -746,11 +756,28 @@ class FmProcessor:
         d: dict = {}
         s = self.fm_summary()
         if s is not None:
-            d["fm"] = asdict(s)
+            d["fm"] = _as_dict(s)
         iq = self.iq_summary()
         if iq is not None:
-            d["iq"] = asdict(iq)
+            d["iq"] = _as_dict(iq)
         return d
+
+
+_SCALARS = (int, float, str, bool, type(None))
+
+
+def _as_dict(obj):
+    """`dataclasses.asdict` without its deep copy of every element: sequences of plain
+    numbers (a deviation histogram holds thousands) are passed on as they are."""
+    if is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: _as_dict(getattr(obj, f.name)) for f in fields(obj)}
+    if isinstance(obj, dict):
+        return {k: _as_dict(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        if all(isinstance(v, _SCALARS) for v in obj):
+            return obj
+        return type(obj)(_as_dict(v) for v in obj)
+    return obj
 
 
 class _levels:

@@ -66,6 +66,17 @@ class TestBeat:
         expected = 10 * np.log10((1600.0**2 / 2) / (19000.0**2 / 2))
         assert fm["mod_power_dbr"] == pytest.approx(expected, abs=0.05)
         assert all(r.mod_tone_hz == pytest.approx(800.0, abs=0.01) for r in a.readings)
+        # the summary dict is what dataclasses.asdict (the reference) makes of it
+        import dataclasses
+
+        from monitor.engine import Engine
+        from monitor.sources import open_source
+
+        with open_source(p, mode="beat") as src:
+            eng = Engine(src.meta, AnalysisSettings(mode="beat", fm=FmSettings()))
+            for b in src:
+                eng.feed(b)
+        assert eng.extra()["fm"] == dataclasses.asdict(eng.processor.fm_summary())
 
     def test_carrier_null(self, ffmpeg, tmp_path):
         # beta at the first zero of J0 with fm = 1 kHz: the carrier line vanishes and the

@@ -7,9 +7,9 @@ generator) with sox's white noise, so the summary is also checked against the tr
 
 from __future__ import annotations
 
+import itertools
 import math
 
-import numpy as np
 import pytest
 import soundfile as sf
 from hypothesis import given, settings
@@ -128,5 +128,5 @@ def test_parts_cover_the_record_on_gate_boundaries(frames, gate_n, jobs):
     parts = parallel.plan_parts(frames, gate_n, jobs)
     assert parts[0][0] == 0 and parts[-1][1] == frames
     assert 1 <= len(parts) <= jobs
-    for (a, b), (c, _) in zip(parts, parts[1:], strict=False):
+    for (a, b), (c, _) in itertools.pairwise(parts):
         assert b == c and a % gate_n == 0 and (b - a) // gate_n >= parallel.MIN_PART_GATES
