@@ -301,6 +301,9 @@ class FmProcessor:
         self._quality = dq.QualityAccumulator()
         self._gate_index = 0  # gates processed (the spur search follows it)
         self._spur_due = True
+        from monitor.engine import HumFamily
+
+        self._hum = HumFamily("auto")
         self._last_tone: dt.ToneEstimate | None = None
         self._tone_w = 0.0  # sum of 1/sigma^2 of the tone frequencies
         self._tone_wf = 0.0
@@ -484,9 +487,14 @@ class FmProcessor:
                     # mode: every SFDR_EVERY_GATES-th gate and the first with a tone
                     search = self._spur_due or gate_index % SFDR_EVERY_GATES == 0
                     qual = dq.measure_quality(
-                        dev_f, fs_out, fundamental_hz=tone.frequency_hz, sfdr=search
+                        dev_f,
+                        fs_out,
+                        fundamental_hz=tone.frequency_hz,
+                        sfdr=search,
+                        mains=self._hum.arg(search),
                     )
                     self._spur_due = False
+                    self._hum.seen(qual, search)
                     self._quality.add(qual)
             else:
                 tone = None

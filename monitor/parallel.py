@@ -10,7 +10,8 @@ whole record are those of one engine that read the file from start to end:
 - a measurement filter is brought to its state at the part's start by running it over
   the `PREROLL_S` seconds before it (the filters' slowest poles decay in tens of
   milliseconds, so the state agrees with the one-pass state to rounding);
-- the spur search runs on the same gates (it follows the gate index);
+- the spur search and the choice of the mains family run on the same gates (they
+  follow the gate index, and parts start on such a gate);
 - the counter's first gate in a part starts from a fresh search instead of the last
   frequency of the part before: the fit converges to the same minimum (the readings
   agree to rounding).
@@ -32,7 +33,7 @@ import sys
 import warnings
 from collections.abc import Callable
 
-from monitor.engine import Analysis, AnalysisSettings, Engine, _gate_n
+from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine, _gate_n
 
 #: seconds before a part run through the measurement filter to settle it
 PREROLL_S = 2.0
@@ -71,15 +72,21 @@ def why_not_split(source, settings: AnalysisSettings) -> str | None:
     return None
 
 
-def plan_parts(frames: int, gate_n: int, jobs: int) -> list[tuple[int, int]]:
+def plan_parts(
+    frames: int, gate_n: int, jobs: int, *, align: int = SFDR_EVERY_GATES
+) -> list[tuple[int, int]]:
     """[(start, stop)] frames of up to `jobs` parts of whole gates (the last part
-    takes the rest, partial gate included); one part when they would be too short."""
+    takes the rest, partial gate included); one part when they would be too short.
+
+    Parts start on multiples of `align` gates: the quality meter's full gates (spur
+    search, both mains families) fall every SFDR_EVERY_GATES gates, so each part starts
+    on one, as the gate would in a one-pass analysis."""
     gates = frames // gate_n
     jobs = max(1, min(jobs, gates // MIN_PART_GATES))
     if jobs == 1:
         return [(0, frames)]
-    edges = [round(k * gates / jobs) * gate_n for k in range(jobs)] + [frames]
-    return list(itertools.pairwise(edges))
+    starts = sorted({round(k * gates / jobs / align) * align * gate_n for k in range(jobs)})
+    return list(itertools.pairwise([*starts, frames]))
 
 
 def choose_jobs(jobs: int | None, source, settings: AnalysisSettings) -> int:
