@@ -331,10 +331,9 @@ class SoundFileSource(_BlockReader):
             if mono:
                 yield data
             elif self.mode == "iq":
-                i, q = data[:, 0], data[:, 1]
-                if self.swap_iq:
-                    i, q = q, i
-                yield i + 1j * q
+                # (I, Q) rows are complex samples in memory: a view, no arithmetic
+                rows = data[:, ::-1] if self.swap_iq else data
+                yield np.ascontiguousarray(rows, dtype=np.float64).view(np.complex128)[:, 0]
             elif self.mix:
                 yield data.mean(axis=1)
             else:
