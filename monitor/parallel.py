@@ -1,8 +1,8 @@
 """One long recording analysed on several cores: the same engine, run on parts of it.
 
-A recording is cut on gate boundaries into as many parts as there are worker processes
-(each part a whole number of gates, the last one taking the rest). Each worker opens the
-file, reads its part and runs an `Engine` on it; the parent joins the engines in order
+A recording is cut on gate boundaries into parts (a few per worker process, each a whole
+number of gates, the last one taking the rest). A worker opens the file, reads a part
+and runs an `Engine` on it; the parent joins the engines in order
 (`Engine.absorb`), so the readings, their summaries and the phase-coherent join of the
 whole record are those of one engine that read the file from start to end:
 
@@ -43,6 +43,10 @@ MIN_PART_GATES = 60
 MIN_SPAWN_SECONDS = 1800.0
 #: most worker processes
 MAX_JOBS = 8
+#: parts per worker: the pool hands the next part to whichever worker is free, so a core
+#: that another program slows holds up a small part, not half the record (and the
+#: progress bar moves more often)
+PARTS_PER_JOB = 4
 
 
 def cpu_count() -> int:
@@ -138,11 +142,11 @@ def analyze_parts(
     """Analyse `source` (opened from `path` with `source_kw`) in `jobs` processes."""
     meta = source.meta
     gate_n = _gate_n(settings, meta)
-    parts = plan_parts(meta.frames, gate_n, jobs)
+    parts = plan_parts(meta.frames, gate_n, jobs * PARTS_PER_JOB)
     tasks = [(str(path), source_kw, settings, a, b, a // gate_n) for a, b in parts]
     engine: Engine | None = None
     done = 0
-    with _context().Pool(len(parts)) as pool:
+    with _context().Pool(min(jobs, len(parts))) as pool:
         for part, said in pool.imap(_part, tasks):
             for text, category in said:
                 warnings.warn(text, category, stacklevel=2)
