@@ -20,7 +20,9 @@ subtracted.
 
 from __future__ import annotations
 
+import itertools
 import math
+import operator
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -576,7 +578,7 @@ def measure_quality(
         raise ValueError(f"n_harmonics={n_harmonics} must be >= 1")
     if mains is not None and (isinstance(mains, bool) or mains not in ("auto", 50, 60)):
         raise ValueError(f"mains={mains!r} must be 'auto', 50, 60 or None")
-    a = _as_real_block(x)
+    a, total = _real_block_and_sum(x)
     n = a.size
 
     # Lines: fundamental and harmonics 2..n_harmonics at or below fs/2, then the mains
@@ -612,12 +614,13 @@ def measure_quality(
     inner, outer = _tables(w_base, np.array(cols), q_max, m_len, r_len)
     z = _project(a, inner, outer)
     g = _gram(w, n)
-    p = np.concatenate([[a.sum()], z.real, z.imag])
+    p = np.concatenate([[total], z.real, z.imag])
     xx = float(np.dot(a, a))
     # Lines closer than half a bin to each other or to their mirror images at 0 / fs/2
-    # make the Gram matrix ill-conditioned: take the careful solver then.
-    ws = np.sort(w)
-    gap = min(float(ws[0]), float(np.pi - ws[-1]), float(np.diff(ws).min()) if k > 1 else 9.0)
+    # make the Gram matrix ill-conditioned: take the careful solver then. (A few dozen
+    # numbers: plain Python is quicker here than numpy's per-call cost.)
+    ws = sorted(w.tolist())
+    gap = min(ws[0], math.pi - ws[-1], min(map(operator.sub, ws[1:], ws[:-1]), default=9.0))
     # Lines a bin or more apart are nearly orthogonal (Dirichlet kernel); half a bin
     # still leaves the scaled Gram matrix well conditioned for a plain solve.
     b = _solve_normal(g, p, gap > np.pi / n)
@@ -632,13 +635,13 @@ def measure_quality(
     hum_energy = other_energy = 0.0
     n_other = 0
     if mains_hz:
-        fam = {f: float(energy[np.array(member[f])].sum()) for f in mains_hz}
+        el = energy.tolist()
+        fam = {f: math.fsum(itertools.compress(el, member[f])) for f in mains_hz}
         f_m = max(mains_hz, key=lambda f: fam[f])
         hum_energy = fam[f_m]
-        other = np.array([not member[f_m][i] for i in range(k)])
-        other[:n_sig] = False
-        other_energy = float(energy[other].sum())
-        n_other = int(np.count_nonzero(other))
+        other = [not m for m in member[f_m][n_sig:]]  # the other family's own lines
+        other_energy = math.fsum(itertools.compress(el[n_sig:], other))
+        n_other = sum(other)
 
     n_par = max(int(np.count_nonzero(b)) - 2 * n_other, 1)
     resid = xx - float(np.dot(b, p))
