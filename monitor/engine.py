@@ -295,12 +295,10 @@ class AudioProcessor:
         # over day-long sessions
         self._tones = _GateTable()
         self._quality = dq.QualityAccumulator()
-        # the spur search runs on every SFDR_EVERY_GATES-th gate of the stream, and on
-        # the first gate with a tone: which gates those are depends only on the gate's
-        # index, so a recording analysed in parts (monitor.parallel) searches the same
+        # full quality gates (spur search, both mains families) by the gate index alone,
+        # so a recording analysed in parts (monitor.parallel) gets the same ones
         self._gate_index = 0
-        self._spur_due = True
-        self._hum = HumFamily(settings.mains)
+        self._schedule = QualitySchedule(settings.mains)
         self._levels = _LevelAccumulator()
         self._sos = None
         self._zi = None
@@ -341,7 +339,7 @@ class AudioProcessor:
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool) -> Reading:
         s = self.settings
         k = self.meta.clock_factor
-        search = self._spur_due or self._gate_index % SFDR_EVERY_GATES == 0
+        full = self._schedule.next_gate(self._gate_index)
         self._gate_index += 1
         lvl = dq.measure_level(x)
         self._levels.add_level(lvl)
@@ -370,12 +368,11 @@ class AudioProcessor:
                         self.fs,
                         fundamental_hz=est.frequency_hz,
                         n_harmonics=s.n_harmonics,
-                        mains=self._hum.arg(search),
+                        mains=self._schedule.mains_for(xf.shape[0], self.fs),
                         # the spur search is the costliest part: a sample of gates
-                        sfdr=search,
+                        sfdr=full,
                     )
-                    self._spur_due = False
-                    self._hum.seen(qual, search)
+                    self._schedule.measured(qual, full)
                     self._quality.add(qual)
             else:
                 self._track_hz = None
@@ -445,9 +442,21 @@ class AudioProcessor:
 
     def start_at(self, gate_index: int) -> None:
         """Make this processor the one for a part of a stream that starts at gate
-        `gate_index` (its first gate is not the stream's first spur search)."""
+        `gate_index` (a multiple of SFDR_EVERY_GATES, where the schedule re-arms)."""
+        if gate_index % SFDR_EVERY_GATES:
+            raise ValueError(f"gate_index={gate_index} must be a multiple of {SFDR_EVERY_GATES}")
         self._gate_index = gate_index
-        self._spur_due = gate_index == 0
+
+    def warm_up(self, x: np.ndarray) -> None:
+        """Take the counter's tracking state from gate `x` without measuring it (the gate
+        before a part of a stream, so that the part's first fit starts where one pass's
+        would: their results then agree to second order in the fit's tolerance)."""
+        if dq.measure_level(x).rms_dbfs > SILENCE_DBFS:
+            est = self._tone(x)
+            if est.gate_snr_db >= TONE_GATE_SNR_MIN_DB:
+                self._track_hz, self._track_snr = est.frequency_hz, est.snr_db
+            else:
+                self._track_hz = None
 
     def absorb(self, later: AudioProcessor) -> None:
         """Append the gates of `later`, which measured the part of the stream right after
@@ -460,8 +469,7 @@ class AudioProcessor:
         self._levels.merge(later._levels)
         self.no_tone_gates += later.no_tone_gates
         self._gate_index = later._gate_index
-        self._spur_due = self._spur_due and later._spur_due
-        self._hum = later._hum
+        self._schedule = later._schedule
         self._track_hz, self._track_snr = later._track_hz, later._track_snr
         self._zi = later._zi
 
@@ -580,29 +588,49 @@ def _mains_arg(mains: str):
     return int(mains)
 
 
-class HumFamily:
-    """Which mains family the quality meter fits on a gate.
+class QualitySchedule:
+    """Which gates get the quality meter's full treatment, by the gate's index alone.
 
-    With mains "auto" both the 50 Hz and the 60 Hz lines are fitted on the full gates
-    (those with the spur search: every SFDR_EVERY_GATES-th and the first), and the family
-    holding more power there is fitted alone on the gates in between. The figures are
-    the same (the other family's lines are noise either way, to within the few degrees
-    of freedom they took: about 1e-6 dB at 1 s gates), and most gates fit six lines
-    fewer.
+    A *full* gate is the first gate with a tone at or after every SFDR_EVERY_GATES-th
+    gate of the stream: it gets the spur search (the meter's costliest part) and, with
+    mains "auto", the fit of both the 50 Hz and the 60 Hz family. The gates after it, up
+    to the next boundary, fit only the family that held more power there, when the gate
+    holds whole cycles of 10 Hz: the two families' lines are then orthogonal over the
+    gate, so the figures are the same (the other family's lines are noise either way;
+    they agree to about 1e-6 dB at 1 s gates) and six lines fewer are fitted. At other
+    gate lengths the lines overlap and both families are fitted on every gate.
+
+    The state is re-armed at each boundary, so a part of a stream that starts on one
+    (monitor.parallel) schedules exactly as the whole stream does.
     """
 
     def __init__(self, mains: str):
         self.mains = _mains_arg(mains)
-        self.chosen: int | None = None
+        self._due = True
+        self._chosen: int | None = None
 
-    def arg(self, full_gate: bool):
-        if self.mains != "auto" or full_gate or self.chosen is None:
+    def next_gate(self, gate_index: int) -> bool:
+        """Start gate `gate_index`; True when it is to be a full gate (if it has a tone)."""
+        if gate_index % SFDR_EVERY_GATES == 0:
+            self._due = True
+            self._chosen = None
+        return self._due
+
+    def mains_for(self, n: int, fs_hz: float):
+        """The `mains` argument of measure_quality for the current n-sample gate."""
+        if self.mains != "auto" or self._due or self._chosen is None:
             return self.mains
-        return self.chosen
+        cycles = n * 10.0 / fs_hz
+        if abs(cycles - round(cycles)) > 1e-9:
+            return self.mains  # 50 and 60 Hz lines are not orthogonal over this gate
+        return self._chosen
 
-    def seen(self, q, full_gate: bool) -> None:
-        if self.mains == "auto" and (full_gate or self.chosen is None) and q.hum_hz:
-            self.chosen = int(q.hum_hz)
+    def measured(self, q, full: bool) -> None:
+        """Note the quality figures of the gate just measured."""
+        if full:
+            self._due = False
+            if self.mains == "auto" and q.hum_hz:
+                self._chosen = int(q.hum_hz)
 
 
 class Engine:
@@ -633,6 +661,7 @@ class Engine:
         self.keep_readings = keep_readings
         self.readings: list[Reading] = []
         self.gates = 0  # gates measured, whether or not their readings are kept
+        self.parts_redone = 0  # parts measured again in one pass (monitor.parallel)
         self.gate_n = _gate_n(self.settings, meta)
         dtype = np.complex128 if meta.mode == "iq" else np.float64
         self._buf = np.empty(self.gate_n, dtype=dtype)
@@ -706,6 +735,15 @@ class Engine:
                 out.append(self._emit(self._buf[: self._fill].copy()))
         self._fill = 0
         return out
+
+    def drop_buffer(self) -> None:
+        """Free the gate buffer (an engine that has finished and is sent elsewhere)."""
+        self._buf = self._buf[:0]
+
+    def restore_buffer(self) -> None:
+        """Give back the gate buffer `drop_buffer` freed, so the engine can be fed."""
+        if self._buf.shape[0] != self.gate_n:
+            self._buf = np.empty(self.gate_n, dtype=self._buf.dtype)
 
     def absorb(self, later: Engine) -> None:
         """Join the engine that measured the part of the stream right after this one's

@@ -299,11 +299,10 @@ class FmProcessor:
         self._power: dfm.ModulationPowerMeter | None = None
         self._spec: dspec.SpectrumAverager | None = None
         self._quality = dq.QualityAccumulator()
-        self._gate_index = 0  # gates processed (the spur search follows it)
-        self._spur_due = True
-        from monitor.engine import HumFamily
+        self._gate_index = 0  # gates processed (the quality schedule follows it)
+        from monitor.engine import QualitySchedule
 
-        self._hum = HumFamily("auto")
+        self._schedule = QualitySchedule("auto")
         self._last_tone: dt.ToneEstimate | None = None
         self._tone_w = 0.0  # sum of 1/sigma^2 of the tone frequencies
         self._tone_wf = 0.0
@@ -399,9 +398,9 @@ class FmProcessor:
 
     # -- per gate ----------------------------------------------------------------------
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool):
-        from monitor.engine import SFDR_EVERY_GATES, Reading, quality_fields
+        from monitor.engine import Reading, quality_fields
 
-        gate_index = self._gate_index
+        full = self._schedule.next_gate(self._gate_index)
         self._gate_index += 1
         lvl = self._levels.add(x)
         if self._demod is None:
@@ -483,18 +482,16 @@ class FmProcessor:
                 self._tone_amp_sum += tone.amplitude
                 self._tone_n += 1
                 if 0 < tone.frequency_hz < fs_out / 2:
-                    # the spur search (the dearest part) on a sample of gates, as in audio
-                    # mode: every SFDR_EVERY_GATES-th gate and the first with a tone
-                    search = self._spur_due or gate_index % SFDR_EVERY_GATES == 0
+                    # the spur search (the dearest part) on a sample of gates, as in
+                    # audio mode (engine.QualitySchedule)
                     qual = dq.measure_quality(
                         dev_f,
                         fs_out,
                         fundamental_hz=tone.frequency_hz,
-                        sfdr=search,
-                        mains=self._hum.arg(search),
+                        sfdr=full,
+                        mains=self._schedule.mains_for(dev_f.shape[0], fs_out),
                     )
-                    self._spur_due = False
-                    self._hum.seen(qual, search)
+                    self._schedule.measured(qual, full)
                     self._quality.add(qual)
             else:
                 tone = None

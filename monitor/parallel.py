@@ -12,15 +12,19 @@ whole record are those of one engine that read the file from start to end:
   milliseconds, so the state agrees with the one-pass state to rounding);
 - the spur search and the choice of the mains family run on the same gates (they
   follow the gate index, and parts start on such a gate);
-- the counter's first gate in a part starts from a fresh search instead of the last
-  frequency of the part before: the fit converges to the same minimum (the readings
-  agree to rounding).
+- the counter's tracking state at a part's start comes from the gate before it (a fresh
+  search there, then tracking as in one pass), so the part's first fit starts next to
+  where one pass's starts and stops at the same point to second order in the fit's
+  tolerance. The parent measures that first gate as one pass would (from the joined
+  parts' tracking state): if it finds another line (a tone that faded under a stronger
+  one), the part is run again in the parent, continuing the parts before it.
 
 Only integer PCM files (WAV/RF64/W64 through libsndfile) in audio mode without a
 deviation calibration are split; everything else, and recordings too short for the
 start-up cost to pay, takes one process. Workers start by `fork` on Linux (a few
 milliseconds) and by `spawn` elsewhere (about a second: only recordings of half an hour
-or more are split there).
+or more are split there; on Linux too when the process already runs threads, as with
+a progress bar, and workers start from a fork server).
 """
 
 from __future__ import annotations
@@ -29,7 +33,9 @@ import itertools
 import math
 import multiprocessing
 import os
+import signal
 import sys
+import threading
 import warnings
 from collections.abc import Callable
 
@@ -58,9 +64,28 @@ def cpu_count() -> int:
 
 
 def _context():
-    # fork is quick and safe on Linux; macOS and Windows need spawn
-    method = "fork" if sys.platform.startswith("linux") else "spawn"
-    return multiprocessing.get_context(method)
+    """The start method for workers.
+
+    fork on Linux (a few milliseconds; the children use nothing the parent's other
+    threads could hold), unless the process already runs other threads (a progress bar):
+    then forkserver, whose server has imported the engine once. macOS and Windows spawn.
+    """
+    if sys.platform.startswith("linux"):
+        if threading.active_count() == 1:
+            return multiprocessing.get_context("fork")
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["monitor.parallel"])
+        return ctx
+    return multiprocessing.get_context("spawn")
+
+
+def _quick_start() -> bool:
+    return _context().get_start_method() == "fork"
+
+
+def _worker_init() -> None:
+    # Ctrl-C is the parent's to handle: it stops the pool and says so in one line
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def why_not_split(source, settings: AnalysisSettings) -> str | None:
@@ -101,7 +126,7 @@ def choose_jobs(jobs: int | None, source, settings: AnalysisSettings) -> int:
         return 1
     if jobs is None:
         seconds = source.meta.frames / source.meta.fs_hz
-        if _context().get_start_method() != "fork" and seconds < MIN_SPAWN_SECONDS:
+        if not _quick_start() and seconds < MIN_SPAWN_SECONDS:
             return 1
         jobs = min(cpu_count(), MAX_JOBS)
     return jobs
@@ -118,16 +143,61 @@ def _part(task) -> tuple[Engine, list[tuple[str, type]]]:
             engine = Engine(src.meta, settings)
             p = engine.processor
             p.start_at(gate_index)
-            if p._sos is not None and start > 0:
-                pre = max(0, start - int(math.ceil(PREROLL_S * src.meta.fs_hz)))
-                for block in src.blocks_between(pre, start):
-                    p.filtered(block.samples)
+            if start > 0:
+                if p._sos is not None:
+                    pre = max(0, start - int(math.ceil(PREROLL_S * src.meta.fs_hz)))
+                    for block in src.blocks_between(pre, start):
+                        p.filtered(block.samples)
+                p.warm_up(_gate_samples(src, start - engine.gate_n, engine.gate_n))
             engine._next = start
             for block in src.blocks_between(start, stop):
                 engine.feed(block)
             engine.finish()
-    # warnings are handed to the parent, which shows them: a worker writes nothing
-    return engine, [(str(w.message), w.category) for w in said]
+    engine.drop_buffer()  # the parent needs the figures, not the last gate's samples
+    # warnings are handed to the parent, which shows them (once each): a worker writes
+    # nothing
+    seen: dict[tuple[str, type], None] = {}
+    for w in said:
+        seen.setdefault((str(w.message), w.category))
+    return engine, list(seen)
+
+
+def _gate_samples(source, start: int, n: int):
+    import numpy as np
+
+    return np.concatenate([b.samples for b in source.blocks_between(start, start + n)])
+
+
+def _joins(engine: Engine, part: Engine, source, start: int) -> bool:
+    """Whether `part` (which started afresh at `start`) continues `engine` as one pass
+    would: the first gate of a part searches the spectrum for the tone, where one pass
+    follows the tone of the gate before. Both give the same line unless the tone moved
+    or faded (or another line is stronger); the parent checks that gate itself."""
+    p = engine.processor
+    if p._track_hz is None or not part.readings:
+        return True  # one pass searches afresh here too
+    from monitor.engine import TONE_GATE_SNR_MIN_DB
+
+    x = _gate_samples(source, start, engine.gate_n)
+    if x.shape[0] < engine.gate_n:
+        return False
+    est = p._tone(x)
+    k = engine.meta.clock_factor
+    one_pass = est.frequency_hz * k if est.gate_snr_db >= TONE_GATE_SNR_MIN_DB else None
+    first = part.readings[0].frequency_hz
+    if one_pass is None or first is None:
+        return one_pass is None and first is None
+    bin_hz = engine.meta.fs_hz / engine.gate_n * k
+    return abs(one_pass - first) <= 1e-3 * bin_hz  # the same line, to the fit's tolerance
+
+
+def _continue(engine: Engine, source, start: int, stop: int, last: bool) -> None:
+    """Run frames [start, stop) through `engine` itself (exactly as one pass does)."""
+    engine.restore_buffer()
+    for block in source.blocks_between(start, stop):
+        engine.feed(block)
+    if last:
+        engine.finish()
 
 
 def analyze_parts(
@@ -139,24 +209,55 @@ def analyze_parts(
     *,
     progress: Callable[[int, int | None], None] | None = None,
 ) -> Analysis:
-    """Analyse `source` (opened from `path` with `source_kw`) in `jobs` processes."""
+    """Analyse `source` (opened from `path` with `source_kw`) in `jobs` processes.
+
+    A part whose first gate the one-pass engine would have measured differently (see
+    `_joins`) is run again in this process, continuing the parts before it. A worker that
+    dies (out of memory, say) makes the whole record run in this process, with a warning.
+    """
+    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
     meta = source.meta
     gate_n = _gate_n(settings, meta)
     parts = plan_parts(meta.frames, gate_n, jobs * PARTS_PER_JOB)
     tasks = [(str(path), source_kw, settings, a, b, a // gate_n) for a, b in parts]
+    if settings.filter != "none":
+        from dsp import filters
+
+        filters.filter_sos(settings.filter, meta.fs_hz)  # designed once, before the fork
     engine: Engine | None = None
     done = 0
-    with _context().Pool(min(jobs, len(parts))) as pool:
-        for part, said in pool.imap(_part, tasks):
-            for text, category in said:
-                warnings.warn(text, category, stacklevel=2)
-            if engine is None:
-                engine = part
-            else:
-                engine.absorb(part)
-            done += part.frames
-            if progress is not None:
-                progress(done, meta.frames)
+    redone = 0
+    try:
+        with ProcessPoolExecutor(
+            min(jobs, len(parts)), mp_context=_context(), initializer=_worker_init
+        ) as pool:
+            for (a, b), (part, said) in zip(parts, pool.map(_part, tasks), strict=True):
+                for text, category in said:
+                    warnings.warn(text, category, stacklevel=2)
+                if engine is None:
+                    engine = part
+                    engine.restore_buffer()
+                elif _joins(engine, part, source, a):
+                    engine.absorb(part)
+                else:
+                    _continue(engine, source, a, b, last=b == meta.frames)
+                    redone += 1
+                done = b
+                if progress is not None:
+                    progress(done, meta.frames)
+    except BrokenProcessPool:
+        from monitor.engine import run
+
+        warnings.warn(
+            "a worker process died (out of memory?): the recording was analysed in one "
+            "process instead",
+            RuntimeWarning,
+            stacklevel=2,
+        )
+        return run(source, settings, progress=progress)
+    engine.parts_redone = redone
     if engine.frames < meta.frames:
         source._warn(
             f"file is truncated: header promises {meta.frames} frames, found {engine.frames}"

@@ -119,6 +119,11 @@ _INTEGER_READS = {
 }
 
 
+#: containers whose integer reads were checked to equal libsndfile's float conversion
+#: exactly (others, such as SDS, scale differently and keep libsndfile's own conversion)
+_INTEGER_CONTAINERS = frozenset({"WAV", "WAVEX", "RF64", "W64", "AIFF", "CAF", "FLAC", "AU"})
+
+
 class _BlockReader:
     """Common iteration: counts frames, replaces non-finite samples by silence.
 
@@ -269,7 +274,11 @@ class SoundFileSource(_BlockReader):
         # PCM is read as integers and scaled here: the same values libsndfile's own
         # conversion gives (k / 2^15 for 8- and 16-bit, k / 2^31 for the left-justified
         # 24- and 32-bit), in half the time, and none of them can be NaN or out of range
-        self._int_read = _INTEGER_READS.get(str(info.subtype))
+        self._int_read = (
+            _INTEGER_READS.get(str(info.subtype))
+            if str(info.format) in _INTEGER_CONTAINERS
+            else None
+        )
         self._integer_samples = self._int_read is not None
         if channels == 2 and mode != "iq" and _looks_like_iq(self._f):
             self.warnings.append(
