@@ -134,7 +134,7 @@ def choose_jobs(jobs: int | None, source, settings: AnalysisSettings) -> int:
 
 def _part(task) -> tuple[Engine, list[tuple[str, type]]]:
     """Worker: run one engine on frames [start, stop) of the file."""
-    path, source_kw, settings, start, stop, gate_index = task
+    path, source_kw, settings, start, stop, gate_index, sos = task
     from monitor.sources import open_source
 
     with warnings.catch_warnings(record=True) as said:
@@ -143,6 +143,10 @@ def _part(task) -> tuple[Engine, list[tuple[str, type]]]:
             engine = Engine(src.meta, settings)
             p = engine.processor
             p.start_at(gate_index)
+            if sos is not None:
+                # the parent's design, not one of our own: a least-squares polish can
+                # land on slightly different coefficients in another process
+                p._sos = sos
             if start > 0:
                 if p._sos is not None:
                     pre = max(0, start - int(math.ceil(PREROLL_S * src.meta.fs_hz)))
@@ -221,11 +225,12 @@ def analyze_parts(
     meta = source.meta
     gate_n = _gate_n(settings, meta)
     parts = plan_parts(meta.frames, gate_n, jobs * PARTS_PER_JOB)
-    tasks = [(str(path), source_kw, settings, a, b, a // gate_n) for a, b in parts]
+    sos = None
     if settings.filter != "none":
         from dsp import filters
 
-        filters.filter_sos(settings.filter, meta.fs_hz)  # designed once, before the fork
+        sos = filters.filter_sos(settings.filter, meta.fs_hz)  # the one-pass engine's
+    tasks = [(str(path), source_kw, settings, a, b, a // gate_n, sos) for a, b in parts]
     engine: Engine | None = None
     done = 0
     redone = 0
