@@ -28,6 +28,11 @@ class GateTable:
         self._a[self._n : n] = other._a[: other._n]
         self._n = n
 
+    @property
+    def nbytes(self) -> int:
+        """Bytes held (the capacity, which doubles as rows are added)."""
+        return self._a.nbytes
+
     def __len__(self) -> int:
         return self._n
 
