@@ -88,17 +88,23 @@ def throughput(tmp: Path) -> dict:
     path = tmp / "ten-minutes.wav"
     make_recording(path, 10, f_true)
     dur = 600.0
-    # warm caches (file system, numpy) once for both contenders
-    naive_counter(str(path))
     settings = AnalysisSettings(gate_s=1.0)
-    t0 = time.perf_counter()
-    a = analyze_file(path, settings=settings)
-    t_ours = time.perf_counter() - t0
-    # `swingmeter analyze` by default: the record in parts on all CPUs (monitor.parallel)
-    t0 = time.perf_counter()
-    p = analyze_file(path, settings=settings, jobs=None)
-    t_parts = time.perf_counter() - t0
-    naive, t_naive = naive_counter(str(path))
+    # One run of each first: the file in the page cache, the lazy imports (scipy), the
+    # FFT plans. Then each contender three times in turn, taking each one's best: the
+    # machines here are shared, and a neighbour's burst should not decide the figure.
+    naive_counter(str(path))
+    analyze_file(path, settings=settings)
+    t_ours = t_parts = t_naive = math.inf
+    for _ in range(3):
+        t0 = time.perf_counter()
+        a = analyze_file(path, settings=settings)
+        t_ours = min(t_ours, time.perf_counter() - t0)
+        # `swingmeter analyze` by default: the record in parts on all CPUs (monitor.parallel)
+        t0 = time.perf_counter()
+        p = analyze_file(path, settings=settings, jobs=None)
+        t_parts = min(t_parts, time.perf_counter() - t0)
+        naive, t = naive_counter(str(path))
+        t_naive = min(t_naive, t)
     fp = np.array([r.frequency_hz for r in p.readings if r.frequency_hz is not None])
     ours = np.array([r.frequency_hz for r in a.readings if r.frequency_hz is not None])
     from monitor.parallel import cpu_count
