@@ -22,8 +22,13 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-import soundfile as sf
+# Single-threaded BLAS, as `monitor` sets for the command line (its many small products
+# are slowest on a pool of spinning threads); set before numpy is imported.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import numpy as np  # noqa: E402
+import soundfile as sf  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))

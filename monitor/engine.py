@@ -740,9 +740,7 @@ class Engine:
         """Bytes of the per-gate record kept for the whole-stream summary (the phase-
         coherent join needs every gate): the one part of the engine's memory that grows
         with the stream, by a few tens of bytes a gate."""
-        return sum(
-            t.nbytes for t in vars(self.processor).values() if isinstance(t, _GateTable)
-        )
+        return sum(t.nbytes for t in vars(self.processor).values() if isinstance(t, _GateTable))
 
     def drop_buffer(self) -> None:
         """Free the gate buffer (an engine that has finished and is sent elsewhere)."""
