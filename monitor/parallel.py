@@ -39,6 +39,7 @@ import threading
 import warnings
 from collections.abc import Callable
 
+from monitor.blocks import Block
 from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine, _gate_n
 
 #: seconds before a part run through the measurement filter to settle it
@@ -231,6 +232,11 @@ def analyze_parts(
 
         sos = filters.filter_sos(settings.filter, meta.fs_hz)  # the one-pass engine's
     tasks = [(str(path), source_kw, settings, a, b, a // gate_n, sos) for a, b in parts]
+    # One gate through a throwaway engine first: the lazy imports (scipy's FFT and
+    # filters) and the per-length tables are then made once here and inherited by forked
+    # workers, instead of once in every worker.
+    warm = Engine(meta, settings, keep_readings=False)
+    warm.feed(Block(_gate_samples(source, 0, gate_n), 0, meta))
     engine: Engine | None = None
     done = 0
     redone = 0

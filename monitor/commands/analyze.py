@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import math
 import sys
+import time
 
 from dsp.filters import FILTERS
 from monitor.blocks import MODES
@@ -205,12 +207,15 @@ def mode_for(path: str | None, args) -> str:
 
 def settings_from_args(args, mode: str | None = None):
     from monitor.engine import AnalysisSettings
-    from monitor.fm_engine import FmSettings
 
     mode = mode or args.mode or "audio"
     try:
         fm = None
         if mode in ("beat", "iq"):
+            # (imported only here: the FM modules bring scipy.signal, a second of start-up
+            # that audio mode does not need)
+            from monitor.fm_engine import FmSettings
+
             fm = FmSettings(
                 carrier_near_hz=getattr(args, "carrier_near", None),
                 if_bandwidth_hz=getattr(args, "if_bandwidth", None),
@@ -289,6 +294,10 @@ def _progress_factory(console):
         TimeRemainingColumn(),
         console=console,
         transient=True,
+        # redrawn from the progress callback, not by a thread of its own: with no other
+        # thread running, a long recording's parts can go to workers started by a quick
+        # fork (monitor.parallel)
+        auto_refresh=False,
     )
     return prog, prog
 
@@ -307,8 +316,14 @@ def run(args) -> int:
             with prog:
                 task = prog.add_task(path, total=None)
 
-                def cb(done, total, _t=task):
+                shown = [-math.inf]
+
+                def cb(done, total, _t=task, _shown=shown):
                     prog.update(_t, completed=done, total=total)
+                    now = time.monotonic()
+                    if now - _shown[0] >= 0.1 or (total is not None and done >= total):
+                        _shown[0] = now
+                        prog.refresh()
 
                 analysis = analyze_one(path, args, settings, progress=cb)
         else:
