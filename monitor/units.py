@@ -44,15 +44,33 @@ def positive_frequency_arg(text: str) -> float:
     return value
 
 
-def harmonic_arg(text: str) -> int:
-    """argparse `type=` for a harmonic number N (1 to 1000)."""
+def _whole_number(text: str, what: str, lo: int, hi: int | None, limits: str) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"not a harmonic number: {text!r}") from None
-    if not 1 <= value <= 1000:
-        raise argparse.ArgumentTypeError(f"harmonic must be 1 or more (at most 1000): {text!r}")
+        raise argparse.ArgumentTypeError(f"not {what}: {text!r}") from None
+    if value < lo or (hi is not None and value > hi):
+        raise argparse.ArgumentTypeError(f"{limits}: {text!r}")
     return value
+
+
+def harmonic_arg(text: str) -> int:
+    """argparse `type=` for a harmonic number N (1 to 1000)."""
+    return _whole_number(
+        text, "a harmonic number", 1, 1000, "harmonic must be 1 or more (at most 1000)"
+    )
+
+
+def channel_arg(text: str) -> int:
+    """argparse `type=` for a zero-based channel number."""
+    return _whole_number(text, "a channel number", 0, None, "channel must be 0 or more")
+
+
+def jobs_arg(text: str) -> int | None:
+    """argparse `type=` for a number of processes: 'auto' (None) or a whole number >= 1."""
+    if text.strip().lower() == "auto":
+        return None
+    return _whole_number(text, "'auto' or a whole number", 1, None, "need at least 1 process")
 
 
 def duration_arg(text: str) -> float:

@@ -79,6 +79,18 @@ class TestAnalyze:
         d = run_json(capsys, "analyze", str(a), str(b), "--json")
         assert [x["tone"]["frequency_hz"] for x in d] == pytest.approx([440, 880], abs=1e-3)
 
+    def test_jobs(self, tmp_path, capsys):
+        # 200 gates of 0.1 s at 8 kHz: two parts; the same figures as one process
+        p = write_tone(tmp_path / "a.wav", fs=8000, dur=20.0, f=1000.25)
+        one = run_json(capsys, "analyze", str(p), "--json", "--gate", "0.1", "--jobs", "1")
+        two = run_json(capsys, "analyze", str(p), "--json", "--gate", "0.1", "--jobs", "2")
+        assert two["tone"]["frequency_hz"] == pytest.approx(one["tone"]["frequency_hz"], rel=1e-13)
+        assert two["quality"]["sinad_db"] == pytest.approx(one["quality"]["sinad_db"], abs=1e-6)
+        for bad in ("0", "two"):
+            with pytest.raises(SystemExit):
+                main(["analyze", str(p), "--jobs", bad])
+            assert "--jobs" in capsys.readouterr().err
+
     def test_csv(self, tmp_path, capsys):
         p = write_tone(tmp_path / "a.wav")
         out = tmp_path / "r.csv"

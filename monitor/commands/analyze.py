@@ -10,7 +10,7 @@ import time
 from dsp.filters import FILTERS
 from monitor.blocks import MODES
 from monitor.errors import InputError
-from monitor.units import frequency_arg, harmonic_arg, positive_frequency_arg
+from monitor.units import frequency_arg, harmonic_arg, jobs_arg, positive_frequency_arg
 
 HELP = "measure recordings: frequency with uncertainty, level, audio quality"
 EPILOG = """\
@@ -179,19 +179,6 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "recording in audio mode long enough to gain) or a number (1: one)",
     )
     return p
-
-
-def jobs_arg(text: str) -> int | None:
-    """--jobs: 'auto' (None) or a whole number >= 1."""
-    if text.strip().lower() == "auto":
-        return None
-    try:
-        n = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not 'auto' or a whole number") from None
-    if n < 1:
-        raise argparse.ArgumentTypeError(f"{n} processes: need at least 1")
-    return n
 
 
 def mode_for(path: str | None, args) -> str:

@@ -14,7 +14,13 @@ import time
 
 from monitor.blocks import MODES
 from monitor.errors import InputError
-from monitor.units import duration_arg, frequency_arg, harmonic_arg, positive_frequency_arg
+from monitor.units import (
+    channel_arg,
+    duration_arg,
+    frequency_arg,
+    harmonic_arg,
+    positive_frequency_arg,
+)
 
 HELP = "record a sound-card input to a crash-safe WAV/RF64 (or SigMF) file with its metadata"
 EPILOG = """\
@@ -37,16 +43,6 @@ shows the level.
 """
 
 SUBTYPES = ("PCM_16", "PCM_24", "PCM_32", "FLOAT")
-
-
-def _channel_arg(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a channel number: {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"channel must be 0 or more: {text!r}")
-    return value
 
 
 def add_input_options(p: argparse.ArgumentParser) -> None:
@@ -73,7 +69,7 @@ def add_input_options(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--channel",
-        type=_channel_arg,
+        type=channel_arg,
         default=0,
         metavar="N",
         help="input channel to read, from 0; in iq mode the I channel, Q is N+1 (default: 0)",
