@@ -165,3 +165,57 @@ class TestLongSessions:
         assert p._tones._a.nbytes <= 2 * 2048 * 7 * 8
         assert p._quality.gates == 2000  # running sums, not a list of figures
         assert eng.summary().tone.frequency_hz == pytest.approx(100.25, abs=1e-4)
+
+
+class TestQualitySchedule:
+    """Full quality gates (spur search, both mains families) by the gate index alone."""
+
+    def _mains_used(self, monkeypatch, gate_s, x, fs=8000.0):
+        import dsp.quality as dq
+
+        used = []
+        real = dq.measure_quality
+
+        def spy(*a, **k):
+            used.append((k.get("mains"), k.get("sfdr")))
+            return real(*a, **k)
+
+        monkeypatch.setattr(dq, "measure_quality", spy)
+        src = ArraySource(x, fs)
+        eng = Engine(src.meta, AnalysisSettings(gate_s=gate_s))
+        for b in src:
+            eng.feed(b)
+        return used
+
+    def _hum_tone(self, dur_s, fs=8000.0):
+        t = np.arange(int(dur_s * fs)) / fs
+        rng = np.random.default_rng(2)
+        return (
+            0.5 * np.sin(2 * np.pi * 1000.25 * t)
+            + 3e-4 * np.sin(2 * np.pi * 50 * t)
+            + 1e-4 * np.sin(2 * np.pi * 60 * t)
+            + 1e-4 * rng.standard_normal(t.size)
+        )
+
+    def test_one_family_between_full_gates_when_orthogonal(self, monkeypatch):
+        # 1 s gates hold whole cycles of 10 Hz, so the 50 and 60 Hz lines (and their
+        # harmonics) are orthogonal over a gate (zeros of the Dirichlet kernel, common
+        # practice): the stronger family alone is fitted between the full gates
+        used = self._mains_used(monkeypatch, 1.0, self._hum_tone(17.0))
+        assert [u[1] for u in used] == [i % 8 == 0 for i in range(17)]
+        assert [u[0] for u in used] == ["auto" if i % 8 == 0 else 50 for i in range(17)]
+
+    def test_both_families_on_every_gate_when_not(self, monkeypatch):
+        # 0.25 s gates hold 12.5 cycles of 50 Hz: the families overlap; both every gate
+        used = self._mains_used(monkeypatch, 0.25, self._hum_tone(5.0))
+        assert {u[0] for u in used} == {"auto"}
+
+    def test_one_family_gives_the_figures_of_both(self):
+        # the claim behind the shortcut, against the full fit itself at a 1 s gate
+        from dsp.quality import measure_quality
+
+        x = self._hum_tone(1.0)
+        both = measure_quality(x, 8000.0, fundamental_hz=1000.25, mains="auto", sfdr=False)
+        one = measure_quality(x, 8000.0, fundamental_hz=1000.25, mains=50, sfdr=False)
+        for k in ("snr_db", "sinad_db", "thd_percent", "hum_db"):
+            assert getattr(one, k) == pytest.approx(getattr(both, k), abs=1e-4, rel=1e-4), k
