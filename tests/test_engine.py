@@ -218,4 +218,4 @@ class TestQualitySchedule:
         both = measure_quality(x, 8000.0, fundamental_hz=1000.25, mains="auto", sfdr=False)
         one = measure_quality(x, 8000.0, fundamental_hz=1000.25, mains=50, sfdr=False)
         for k in ("snr_db", "sinad_db", "thd_percent", "hum_db"):
-            assert getattr(one, k) == pytest.approx(getattr(both, k), abs=1e-4, rel=1e-4), k
+            assert getattr(one, k) == pytest.approx(getattr(both, k), abs=1e-6, rel=1e-6), k
