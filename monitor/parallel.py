@@ -19,12 +19,12 @@ whole record are those of one engine that read the file from start to end:
   parts' tracking state): if it finds another line (a tone that faded under a stronger
   one), the part is run again in the parent, continuing the parts before it.
 
-Only integer PCM files (WAV/RF64/W64 through libsndfile) in audio mode without a
-deviation calibration are split; everything else, and recordings too short for the
-start-up cost to pay, takes one process. Workers start by `fork` on Linux (a few
-milliseconds) and by `spawn` elsewhere (about a second: only recordings of half an hour
-or more are split there; on Linux too when the process already runs threads, as with
-a progress bar, and workers start from a fork server).
+Only integer PCM files (WAV, RF64, W64 and the other containers whose integer reads
+were checked, see `monitor.sources`) in audio mode without a deviation calibration are
+split; everything else, and recordings too short for the start-up cost to pay, takes one
+process. Workers start by `fork` on Linux (a few milliseconds) when no other thread is
+running, else from a fork server, and by `spawn` on macOS and Windows; those two take
+about a second to start, so recordings are split there only from half an hour up.
 """
 
 from __future__ import annotations
@@ -46,7 +46,7 @@ from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine,
 PREROLL_S = 2.0
 #: fewest gates a part must hold for a split to be worth it
 MIN_PART_GATES = 60
-#: with workers started by spawn, the shortest recording that is split (s)
+#: with workers started by spawn or a fork server, the shortest recording split (s)
 MIN_SPAWN_SECONDS = 1800.0
 #: most worker processes
 MAX_JOBS = 8
