@@ -32,6 +32,7 @@ import numpy as np
 
 __all__ = [
     "GateCombination",
+    "GateJoin",
     "ToneEstimate",
     "combine_gates",
     "crlb_frequency_std_hz",
@@ -697,6 +698,238 @@ def combine_gates(
     birge = math.sqrt(chi2 / dof) if dof > 0 else 1.0
     sigma = math.sqrt(cov[1, 1]) * max(1.0, birge)
     return GateCombination(float(f_ref + delta), float(sigma), "phase-coherent", float(birge), k)
+
+
+class GateJoin:
+    """`combine_gates` gate by gate, in constant memory: running sums instead of a table.
+
+    ``j.add(t, f, sf, ph, sp, contiguous)`` for each gate in order, then ``j.result()``
+    gives what ``combine_gates`` gives for all of them (to rounding). ``j.merge(later)``
+    appends a join of the gates that followed (a stream analysed in parts), as if its
+    gates had been added here. The phase is followed as in `combine_gates`; the normal
+    equations are kept as moments about the first gate's time and frequency and moved
+    to the record's mean time and frequency at the end (exact algebra, so long records
+    keep their digits: the moments' phases stay within a few radians per hour of drift
+    from the first gate's frequency).
+
+    Also kept, for the engine's summary: the mean square amplitude (`amplitude_rms`) and
+    the least-squares drift of frequency against time (`drift_hz_per_s`).
+    """
+
+    _SUMS = (
+        "w", "wd", "wdd", "p", "pt", "ptt", "pq", "ptq", "pqq",
+        "n1", "nt", "ntt", "nd", "ntd", "t", "aa",
+    )  # fmt: skip
+
+    def __init__(self) -> None:
+        self.k = 0
+        self.n_ok = 0
+        self.coherent = True
+        self._t0 = self._f0 = None  # reference time and frequency (first gate / first ok)
+        self._first: tuple | None = None  # (t, f, sf, ph, ok, contiguous) of gate 0
+        self._last: tuple | None = None  # (t, f, sf, ph) of the last gate
+        self._q = 0.0  # unwrapped phase of the last gate, against f0, from gate 0
+        self._s = dict.fromkeys(self._SUMS, 0.0)
+
+    # -- gate by gate --------------------------------------------------------------------
+    def add(
+        self,
+        t: float,
+        f: float,
+        sf: float,
+        ph: float,
+        sp: float,
+        contiguous: bool = True,
+        amplitude: float = 0.0,
+    ) -> None:
+        t, f, sf, ph, sp = float(t), float(f), float(sf), float(ph), float(sp)
+        ok = math.isfinite(f) and math.isfinite(sf) and sf > 0
+        s = self._s
+        if self._t0 is None:
+            self._t0 = t
+        if ok and self._f0 is None:
+            self._f0 = f
+        f0 = self._f0 if self._f0 is not None else 0.0
+        if ok:
+            w = 1.0 / (sf * sf)
+            d = f - f0
+            s["w"] += w
+            s["wd"] += w * d
+            s["wdd"] += w * d * d
+            self.n_ok += 1
+            tau = t - self._t0
+            s["n1"] += 1.0
+            s["nt"] += tau
+            s["ntt"] += tau * tau
+            s["nd"] += d
+            s["ntd"] += tau * d
+        s["t"] += t - self._t0
+        s["aa"] += float(amplitude) ** 2
+        if self._first is None:
+            self._first = (t, f, sf, ph, ok, bool(contiguous))
+        if not (ok and math.isfinite(ph) and sp < 0.5):
+            self.coherent = False
+        if self.k and not contiguous:
+            self.coherent = False
+        if self.coherent:
+            if self.k:
+                step = _unwrap_step(self._last, (t, f, sf, ph), f0)
+                if step is None:
+                    self.coherent = False
+                else:
+                    self._q += step
+            if self.coherent:
+                wp = 1.0 / (sp * sp)
+                tau, q = t - self._t0, self._q
+                s["p"] += wp
+                s["pt"] += wp * tau
+                s["ptt"] += wp * tau * tau
+                s["pq"] += wp * q
+                s["ptq"] += wp * tau * q
+                s["pqq"] += wp * q * q
+        self._last = (t, f, sf, ph)
+        self.k += 1
+
+    def merge(self, later: GateJoin) -> None:
+        """Append `later`, the join of the gates right after this one's."""
+        if not later.k:
+            return
+        if not self.k:
+            self.__dict__.update(later.__dict__, _s=dict(later._s))
+            return
+        a, b = self._s, later._s
+        e = later._t0 - self._t0  # B's time origin in A's frame
+        if self._f0 is None:
+            self._f0 = later._f0
+            shift = 0.0
+        else:
+            shift = (later._f0 - self._f0) if later._f0 is not None else 0.0
+        # frequency moments: d_A = d_B + shift, tau_A = tau_B + e
+        a["w"] += b["w"]
+        a["wd"] += b["wd"] + shift * b["w"]
+        a["wdd"] += b["wdd"] + 2.0 * shift * b["wd"] + shift * shift * b["w"]
+        a["n1"] += b["n1"]
+        a["nt"] += b["nt"] + e * b["n1"]
+        a["ntt"] += b["ntt"] + 2.0 * e * b["nt"] + e * e * b["n1"]
+        a["nd"] += b["nd"] + shift * b["n1"]
+        a["ntd"] += b["ntd"] + e * b["nd"] + shift * b["nt"] + e * shift * b["n1"]
+        a["t"] += b["t"] + e * later.k
+        a["aa"] += b["aa"]
+        self.n_ok += later.n_ok
+        coherent = self.coherent and later.coherent
+        if coherent:
+            t, f, sf, ph, _ok, contiguous = later._first
+            step = _unwrap_step(self._last, (t, f, sf, ph), self._f0) if contiguous else None
+            coherent = step is not None
+        if coherent:
+            # phase in A's frame: q_A = beta + q_B + 2 pi shift u, u = B's own time
+            beta = self._q + step
+            g = TWO_PI * shift
+            p, pt, ptt = b["p"], b["pt"], b["ptt"]
+            pq, ptq, pqq = b["pq"], b["ptq"], b["pqq"]
+            a["p"] += p
+            a["pt"] += pt + e * p
+            a["ptt"] += ptt + 2.0 * e * pt + e * e * p
+            sum_q = beta * p + pq + g * pt  # sum wp q_A
+            sum_uq = beta * pt + ptq + g * ptt  # sum wp u q_A
+            a["pq"] += sum_q
+            a["ptq"] += sum_uq + e * sum_q
+            a["pqq"] += (
+                beta * beta * p + pqq + g * g * ptt
+                + 2.0 * beta * pq + 2.0 * beta * g * pt + 2.0 * g * ptq
+            )  # fmt: skip
+            last_u = later._last[0] - later._t0
+            self._q = beta + later._q + g * last_u
+        self.coherent = coherent
+        self._last = later._last
+        self.k += later.k
+
+    # -- results -------------------------------------------------------------------------
+    @property
+    def amplitude_rms(self) -> float:
+        return math.sqrt(self._s["aa"] / self.k) if self.k else math.nan
+
+    @property
+    def drift_hz_per_s(self) -> float | None:
+        """Least-squares slope of the (finite) gate frequencies against time."""
+        s = self._s
+        n = s["n1"]
+        if n < 3:
+            return None
+        den = n * s["ntt"] - s["nt"] ** 2
+        return (n * s["ntd"] - s["nt"] * s["nd"]) / den if den > 0 else None
+
+    def result(self) -> GateCombination:
+        """The combined frequency (as `combine_gates`); ValueError without a usable gate."""
+        if not self.k:
+            raise ValueError("need at least one gate")
+        s = self._s
+        if not self.n_ok:
+            raise ValueError("no gate has a finite frequency and uncertainty")
+        f0 = self._f0
+        dm = s["wd"] / s["w"]
+        f_mean = f0 + dm
+        s_mean = 1.0 / math.sqrt(s["w"])
+        if self.n_ok > 1:
+            chi2_mean = max(s["wdd"] - s["wd"] * dm, 0.0)
+            birge_mean = math.sqrt(chi2_mean / (self.n_ok - 1))
+        else:
+            birge_mean = 1.0
+        mean_result = GateCombination(
+            f_mean, s_mean * max(1.0, birge_mean), "mean", birge_mean, self.k
+        )
+        if self.k == 1 or not self.coherent:
+            return mean_result
+        # Move the moments to the batch fit's frame: tau = tau0 - c (c: mean time from
+        # gate 0), phase against f_ref = f_mean: q = q0 - 2 pi g tau0, d = d0 - g.
+        c = s["t"] / self.k
+        g = dm
+        tg = TWO_PI * g
+        p, pt, ptt, pq, ptq, pqq = (s[x] for x in ("p", "pt", "ptt", "pq", "ptq", "pqq"))
+        sw, swd, swdd = s["w"], s["wd"], s["wdd"]
+        s_tau = pt - c * p
+        s_tau2 = ptt - 2.0 * c * pt + c * c * p
+        s_q = pq - tg * pt
+        s_tq = ptq - tg * ptt - c * pq + tg * c * pt
+        s_qq = pqq - 2.0 * tg * ptq + tg * tg * ptt
+        s_d = swd - g * sw
+        s_dd = swdd - 2.0 * g * swd + g * g * sw
+        a11 = p
+        a12 = TWO_PI * s_tau
+        a22 = TWO_PI * TWO_PI * s_tau2 + sw
+        b1 = s_q
+        b2 = TWO_PI * s_tq + s_d
+        det = a11 * a22 - a12 * a12
+        if not (det > 0 and math.isfinite(det)):
+            return mean_result
+        p_hat = (a22 * b1 - a12 * b2) / det
+        delta = (a11 * b2 - a12 * b1) / det
+        chi2_p = (
+            s_qq - 2.0 * p_hat * s_q - 2.0 * TWO_PI * delta * s_tq + p_hat * p_hat * p
+            + 2.0 * TWO_PI * p_hat * delta * s_tau + (TWO_PI * delta) ** 2 * s_tau2
+        )  # fmt: skip
+        chi2_f = s_dd - 2.0 * delta * s_d + delta * delta * sw
+        chi2 = max(chi2_p + chi2_f, 0.0)
+        dof = 2 * self.k - 2
+        birge = math.sqrt(chi2 / dof) if dof > 0 else 1.0
+        sigma = math.sqrt(a11 / det) * max(1.0, birge)
+        return GateCombination(float(f_mean + delta), float(sigma), "phase-coherent", birge, self.k)
+
+
+def _unwrap_step(prev: tuple, cur: tuple, f_ref: float) -> float | None:
+    """Phase advance from gate `prev` to gate `cur` against f_ref (as in combine_gates),
+    or None when the phase cannot be followed across them."""
+    t0, f0, s0, p0 = prev
+    t1, f1, s1, p1 = cur
+    dt = t1 - t0
+    f_mid = 0.5 * (f0 + f1)
+    if TWO_PI * 0.5 * math.hypot(s0, s1) * dt > 0.5:
+        return None
+    miss = p1 - p0 - TWO_PI * f_mid * dt
+    miss = (miss + math.pi) % TWO_PI - math.pi
+    if abs(miss) > 0.5 * math.pi:
+        return None
+    return TWO_PI * (f_mid - f_ref) * dt + miss
 
 
 def format_with_uncertainty(value: float, sigma: float, unit: str = "Hz") -> str:

@@ -290,10 +290,10 @@ class AudioProcessor:
         self.fs = meta.fs_hz
         self._track_hz: float | None = None
         self._track_snr: float | None = None
-        # per-gate tone figures in a compact growing table (56 bytes a gate), and the
-        # quality meter's powers folded into one running figure: memory stays small
-        # over day-long sessions
-        self._tones = _GateTable()
+        # the tone's whole-record join and the quality meter's powers as running sums
+        # (dsp.tone.GateJoin, QualityAccumulator): memory stays flat over day-long
+        # sessions
+        self._tones = dt.GateJoin()
         self._quality = dq.QualityAccumulator()
         # full quality gates (spur search, both mains families) by the gate index alone,
         # so a recording analysed in parts (monitor.parallel) gets the same ones
@@ -353,13 +353,13 @@ class AudioProcessor:
                 self._track_hz, self._track_snr = est.frequency_hz, est.snr_db
                 freq, unc = est.frequency_hz * k, est.uncertainty_hz * k
                 amp, tsnr = est.amplitude_dbfs, est.snr_db
-                self._tones.append(
+                self._tones.add(
                     t_s + est.t_ref_s,
                     est.frequency_hz,
                     est.uncertainty_hz,
                     est.phase_rad,
                     est.phase_uncertainty_rad,
-                    float(contiguous),
+                    contiguous,
                     est.amplitude,
                 )
                 if 0 < est.frequency_hz < self.fs / 2:
@@ -417,14 +417,13 @@ class AudioProcessor:
 
     def tone_summary(self) -> ToneSummary:
         k = self.meta.clock_factor
-        if not len(self._tones):
+        j = self._tones
+        if not j.k:
             return ToneSummary(None, None, None, None, None, 0, None)
-        t, f, sf, ph, sp, cont, amps = self._tones.columns()
-        comb = dt.combine_gates(t, f, sf, ph, sp, contiguous=cont.astype(bool))
-        amp_rms = math.sqrt(float(np.mean(np.square(amps))))
-        drift = None
-        if len(self._tones) >= 3:
-            drift = float(np.polyfit(t, f * k, 1)[0])
+        comb = j.result()
+        amp_rms = j.amplitude_rms
+        slope = j.drift_hz_per_s
+        drift = None if slope is None else float(slope * k)
         return ToneSummary(
             frequency_hz=comb.frequency_hz * k,
             uncertainty_hz=comb.uncertainty_hz * k,
@@ -464,7 +463,7 @@ class AudioProcessor:
         both parts."""
         if later._dev is not None or self._dev is not None:
             raise ValueError("audio deviation figures cannot be joined from parts")
-        self._tones.extend(later._tones)
+        self._tones.merge(later._tones)
         self._quality.merge(later._quality)
         self._levels.merge(later._levels)
         self.no_tone_gates += later.no_tone_gates
@@ -737,9 +736,8 @@ class Engine:
         return out
 
     def record_nbytes(self) -> int:
-        """Bytes of the per-gate record kept for the whole-stream summary (the phase-
-        coherent join needs every gate): the one part of the engine's memory that grows
-        with the stream, by a few tens of bytes a gate."""
+        """Bytes of per-gate records kept for the whole-stream summary: none in audio
+        mode (running sums); the FM modes keep a table of a few tens of bytes a gate."""
         return sum(t.nbytes for t in vars(self.processor).values() if isinstance(t, _GateTable))
 
     def drop_buffer(self) -> None:
