@@ -18,16 +18,6 @@ class GateTable:
         self._a[self._n] = row
         self._n += 1
 
-    def extend(self, other: GateTable) -> None:
-        """Append the rows of `other` (of the same width)."""
-        n = self._n + other._n
-        if n > self._a.shape[0]:
-            grown = np.empty((max(n, 2 * self._a.shape[0]), self._a.shape[1]))
-            grown[: self._n] = self._a[: self._n]
-            self._a = grown
-        self._a[self._n : n] = other._a[: other._n]
-        self._n = n
-
     @property
     def nbytes(self) -> int:
         """Bytes held (the capacity, which doubles as rows are added)."""
