@@ -664,17 +664,12 @@ def combine_gates(
     psi = np.empty(k)
     psi[0] = 0.0
     for i in range(1, k):
-        dt = t[i] - t[i - 1]
-        f_mid = 0.5 * (f[i - 1] + f[i])
-        # the prediction error must be well inside half a cycle to trust the unwrap
-        pred_sigma = TWO_PI * 0.5 * math.hypot(sf[i - 1], sf[i]) * dt
-        if pred_sigma > 0.5:
+        step = _unwrap_step(
+            (t[i - 1], f[i - 1], sf[i - 1], ph[i - 1]), (t[i], f[i], sf[i], ph[i]), f_ref
+        )
+        if step is None:
             return mean_result
-        miss = ph[i] - ph[i - 1] - TWO_PI * f_mid * dt
-        miss = (miss + math.pi) % TWO_PI - math.pi
-        if abs(miss) > 0.5 * math.pi:
-            return mean_result
-        psi[i] = psi[i - 1] + TWO_PI * (f_mid - f_ref) * dt + miss
+        psi[i] = psi[i - 1] + step
     tm = float(np.mean(t))
     tau = t - tm
     wp = 1.0 / sp**2
@@ -923,6 +918,7 @@ def _unwrap_step(prev: tuple, cur: tuple, f_ref: float) -> float | None:
     t1, f1, s1, p1 = cur
     dt = t1 - t0
     f_mid = 0.5 * (f0 + f1)
+    # the prediction error must be well inside half a cycle to trust the unwrap
     if TWO_PI * 0.5 * math.hypot(s0, s1) * dt > 0.5:
         return None
     miss = p1 - p0 - TWO_PI * f_mid * dt

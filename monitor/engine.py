@@ -246,13 +246,6 @@ class _LevelAccumulator:
         self.clipped = 0
         self.full_scale = full_scale
 
-    def add(self, x: np.ndarray, clipped: int) -> None:
-        self.n += x.shape[0]
-        self.sum += float(x.sum())
-        self.sum2 += float(np.dot(x, x))
-        self.peak = max(self.peak, float(np.max(np.abs(x))) if x.size else 0.0)
-        self.clipped += int(clipped)
-
     def add_level(self, lvl) -> None:
         """Add a gate from its LevelFigures (no second pass over the samples)."""
         n = lvl.n_samples
@@ -660,7 +653,6 @@ class Engine:
         self.keep_readings = keep_readings
         self.readings: list[Reading] = []
         self.gates = 0  # gates measured, whether or not their readings are kept
-        self.parts_redone = 0  # parts measured again in one pass (monitor.parallel)
         self.gate_n = _gate_n(self.settings, meta)
         dtype = np.complex128 if meta.mode == "iq" else np.float64
         self._buf = np.empty(self.gate_n, dtype=dtype)

@@ -39,6 +39,8 @@ import threading
 import warnings
 from collections.abc import Callable
 
+import numpy as np
+
 from monitor.blocks import Block
 from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine, _gate_n
 
@@ -168,8 +170,6 @@ def _part(task) -> tuple[Engine, list[tuple[str, type]]]:
 
 
 def _gate_samples(source, start: int, n: int):
-    import numpy as np
-
     return np.concatenate([b.samples for b in source.blocks_between(start, start + n)])
 
 
@@ -239,7 +239,6 @@ def analyze_parts(
     warm.feed(Block(_gate_samples(source, 0, gate_n), 0, meta))
     engine: Engine | None = None
     done = 0
-    redone = 0
     try:
         with ProcessPoolExecutor(
             min(jobs, len(parts)), mp_context=_context(), initializer=_worker_init
@@ -254,7 +253,6 @@ def analyze_parts(
                     engine.absorb(part)
                 else:
                     _continue(engine, source, a, b, last=b == meta.frames)
-                    redone += 1
                 done = b
                 if progress is not None:
                     progress(done, meta.frames)
@@ -268,7 +266,6 @@ def analyze_parts(
             stacklevel=2,
         )
         return run(source, settings, progress=progress)
-    engine.parts_redone = redone
     if engine.frames < meta.frames:
         source._warn(
             f"file is truncated: header promises {meta.frames} frames, found {engine.frames}"
