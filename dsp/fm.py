@@ -23,10 +23,12 @@ __all__ = [
     "BS412_REFERENCE_DEVIATION_HZ",
     "BesselFit",
     "DeviationFigures",
+    "DemodBlock",
     "DeviationHistogram",
     "FmDemodulator",
     "ModulationPower",
     "ModulationPowerMeter",
+    "PhaseLine",
     "carson_bandwidth_hz",
     "deviation_figures",
     "fit_bessel",
@@ -34,6 +36,7 @@ __all__ = [
     "modulation_index",
     "modulation_power",
     "modulation_power_dbr",
+    "phase_line",
 ]
 
 InputKind = Literal["real", "complex"]
@@ -207,6 +210,41 @@ def _phase_angle(re: np.ndarray, im: np.ndarray) -> np.ndarray:
     return acc
 
 
+# The equaliser stops at 11 taps: numpy's direct convolution keeps a fast path up to
+# there (longer kernels cost up to ten times as much per tap), and 1 / sinc, mirrored at
+# half the output rate, has a kink there that more taps approach only slowly.
+_EQ_MAX_HALF = 5
+_EQ_TOLERANCE = 1e-4
+_EQ_CACHE: dict[float, np.ndarray] = {}
+
+
+def _droop_equaliser(x_max: float) -> np.ndarray:
+    """Symmetric FIR taps whose response times sinc(x) is 1 over 0 <= x <= x_max (x in
+    cycles per output sample): least squares on a fine grid, the fewest taps (3 to 11)
+    that keep the error within 1e-4, else 11."""
+    key = round(float(x_max), 6)
+    taps = _EQ_CACHE.get(key)
+    if taps is not None:
+        return taps
+    x = np.linspace(0.0, key, 400)
+    target = 1.0 / np.sinc(x)
+    for half in range(1, _EQ_MAX_HALF + 1):
+        # E(x) = c0 + 2 sum c_k cos(2 pi k x) with E(0) = 1 exactly (c0 = 1 - 2 sum c_k):
+        # a steady offset and slow drift pass unchanged
+        basis = np.stack([2.0 * (np.cos(_TWO_PI * k * x) - 1.0) for k in range(1, half + 1)], 1)
+        ck = np.linalg.lstsq(basis, target - 1.0, rcond=None)[0]
+        err = np.max(np.abs((1.0 + basis @ ck) * np.sinc(x) - 1.0))
+        c = np.concatenate(([1.0 - 2.0 * ck.sum()], ck))
+        if err <= _EQ_TOLERANCE:
+            break
+    taps = np.concatenate((c[:0:-1], c))
+    taps.setflags(write=False)
+    if len(_EQ_CACHE) >= 32:
+        _EQ_CACHE.pop(next(iter(_EQ_CACHE)))
+    _EQ_CACHE[key] = taps
+    return taps
+
+
 class FmDemodulator:
     """Streaming FM discriminator: carrier offset in Hz at a decimated rate.
 
@@ -222,9 +260,11 @@ class FmDemodulator:
     calls, because the filter history, the output grid and the last baseband sample are
     carried between calls.
 
-    An optional 3-tap equaliser [-1, 26, -1] / 24 undoes the sinc droop of the phase
-    difference (it averages the frequency over one output sample): at fm = fs_out / 20
-    the droop is 0.41% uncorrected, 0.004% corrected.
+    The phase difference averages the frequency over one output sample, so a modulating
+    tone f reads sinc(f / fs_out) low (0.41% at fs_out / 20, 10% at fs_out / 4). An
+    optional symmetric FIR equaliser (3 to 11 taps, least-squares fit of 1 / sinc over
+    0 .. ``droop_band_hz``) undoes it to within 1e-4 up to a quarter of the output rate,
+    and within 2e-3 up to 0.4 fs_out (`droop_response` gives the exact net response).
 
     Parameters
     ----------
@@ -248,7 +288,10 @@ class FmDemodulator:
         Attenuation of the IF filter outside the band and, for real input, of the
         mixer image at -2 * carrier (default 80 dB).
     droop_compensation : bool
-        Apply the [-1, 26, -1] / 24 equaliser to the output (default True).
+        Apply the droop equaliser to the output (default True).
+    droop_band_hz : float, optional
+        Highest modulating frequency the equaliser is fitted to (default half the IF
+        bandwidth); it is held to at most 0.45 fs_out.
 
     Attributes
     ----------
@@ -277,8 +320,9 @@ class FmDemodulator:
     References
     ----------
     Polar discriminator and overlap-save filtering: common practice (e.g. R. G. Lyons,
-    Understanding Digital Signal Processing, 3rd ed., 13.22 and 13.10 [memory]). CIC/boxcar
-    droop equaliser [-1, 26, -1]/24 from the series 1/sinc(x) ~ 1 + (pi x)^2 / 6 [computed].
+    Understanding Digital Signal Processing, 3rd ed., 13.22 and 13.10 [memory]). The
+    sinc droop of a first difference and its FIR equaliser: common practice (the same
+    droop as a boxcar/CIC stage) [computed].
     """
 
     _MAX_TAPS = 16385
@@ -299,6 +343,7 @@ class FmDemodulator:
         min_fs_out_hz: float | None = None,
         stopband_db: float = 80.0,
         droop_compensation: bool = True,
+        droop_band_hz: float | None = None,
     ) -> None:
         if kind not in _KINDS:
             raise ValueError(f"kind={kind!r} must be one of {_KINDS}")
@@ -370,6 +415,14 @@ class FmDemodulator:
         self.fs_out_hz = fs_out
         self.numtaps = numtaps
         self.droop_compensation = bool(droop_compensation)
+        band = (
+            bw / 2.0 if droop_band_hz is None else _positive_finite("droop_band_hz", droop_band_hz)
+        )
+        self.droop_band_hz = min(band, 0.45 * fs_out)
+        self._eq = (
+            _droop_equaliser(self.droop_band_hz / fs_out) if self.droop_compensation else None
+        )
+        self._eq_half = 0 if self._eq is None else (self._eq.size - 1) // 2
         self._pad = dec * int(math.ceil((numtaps - 1) / dec))
         # Output-rate phase step of the mixer, kept in (-pi, pi].
         step = math.fmod(fc * dec / fs, 1.0)
@@ -379,7 +432,7 @@ class FmDemodulator:
         self._rot = complex(math.cos(-c), math.sin(-c))
         # The first discriminator output needs two full filter windows.
         self._first_j = self._pad // dec + 1
-        comp_delay = 1 if self.droop_compensation else 0
+        comp_delay = self._eq_half
         self.first_output_time_s = (self._first_j + comp_delay - 0.5) * dec / fs - (numtaps - 1) / (
             2.0 * fs
         )
@@ -390,6 +443,17 @@ class FmDemodulator:
         self._spectra: dict[int, tuple] = {}
         self._bufs: dict[str, np.ndarray] = {}
         self.reset()
+
+    def droop_response(self, freq_hz) -> np.ndarray:
+        """Amplitude response of the discriminator and its equaliser to a modulating
+        tone: sinc(f / fs_out) times the equaliser's response (1 within 1e-4 over the
+        equalised band; the tone figures can be divided by it exactly)."""
+        x = np.asarray(freq_hz, dtype=np.float64) / self.fs_out_hz
+        h = np.sinc(x)
+        if self._eq is not None:
+            k = np.arange(self._eq.size) - self._eq_half
+            h = h * (np.cos(_TWO_PI * np.multiply.outer(x, k)) @ self._eq)
+        return h
 
     # ----------------------------------------------------------------------------------
     def reset(self) -> None:
@@ -490,10 +554,34 @@ class FmDemodulator:
             they are scaled by 2, so a carrier A cos(...) gives amplitude A (as the
             analytic signal does).
         """
-        v = self._advance(samples)
-        f = self._discriminate(v)
-        j = np.arange(self._vstart, self._vstart + v.size)
-        return f, v * _nco(self._mix_cycles, j)
+        b = self.process_block(samples)
+        return b.inst_hz, b.baseband()
+
+    def process_block(self, samples) -> DemodBlock:
+        """Like `process`, returning a `DemodBlock`: the instantaneous frequency, the
+        discriminator's raw (unequalised) phase steps and the baseband, which it
+        computes only where asked (`DemodBlock.baseband`)."""
+        v = self._advance(samples).copy()
+        vstart = self._vstart
+        first = self._last_v is None
+        inst, raw = self._discriminate(v, keep_raw=True)
+        # raw[i] is the step into baseband sample i (i + 1 on a run's first call)
+        step = np.empty(v.size)
+        if v.size:
+            if first:
+                step[1:] = raw
+            else:
+                step[:] = raw
+            step[0] = 0.0
+        return DemodBlock(
+            inst_hz=inst,
+            step_hz=step,
+            fs_out_hz=self.fs_out_hz,
+            start_index=vstart - (self._first_j - 1),
+            _v=v,
+            _v_index=vstart,
+            _mix_cycles=self._mix_cycles,
+        )
 
     # ----------------------------------------------------------------------------------
     def _advance(self, samples) -> np.ndarray:
@@ -533,9 +621,9 @@ class FmDemodulator:
         self._vstart = j0 + skip
         return v[skip:] if skip else v
 
-    def _discriminate(self, v: np.ndarray) -> np.ndarray:
+    def _discriminate(self, v: np.ndarray, keep_raw: bool = False):
         if v.size == 0:
-            return np.zeros(0)
+            return (np.zeros(0), np.zeros(0)) if keep_raw else np.zeros(0)
         # p = v[n] conj(v[n-1]) e^{-jc}: c is the mixer's phase step at the output rate.
         if self._last_v is not None:
             p = self._scratch("p", v.size, np.complex128)
@@ -566,19 +654,19 @@ class FmDemodulator:
         for i in range(0, p.size, 8192):
             q = p[i : i + 8192]
             np.multiply(_phase_angle(q.real, q.imag), scale, out=r[nt + i : nt + i + q.size])
+        raw = r[nt:] if keep_raw else None
         if not comp:
             self.samples_out += r.size
-            return r
-        if r.size < 3:
+            return (r, raw) if keep_raw else r
+        span = self._eq.size
+        if r.size < span:
             self._tail = r.copy()
-            return np.zeros(0)
-        y = np.multiply(r[1:-1], 26.0)
-        y -= r[:-2]
-        y -= r[2:]
-        y *= 1.0 / 24.0
-        self._tail = r[-2:].copy()
-        self.samples_out += y.size
-        return y
+            y = np.zeros(0)
+        else:
+            y = np.convolve(r, self._eq, mode="valid")  # symmetric: no flip needed
+            self._tail = r[r.size - span + 1 :].copy()
+            self.samples_out += y.size
+        return (y, raw) if keep_raw else y
 
 
 def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarray:
@@ -599,6 +687,198 @@ def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarr
     heads = np.exp(-1j * _TWO_PI * phase0)
     out = (heads[:, None] * base[None, :]).reshape(-1)
     return out[:n]
+
+
+def _nco_at(cycles_per_sample: float, j: np.ndarray) -> np.ndarray:
+    """exp(-j 2 pi frac(c * j)) for any integers j (a few; exact phase for each)."""
+    return np.exp(-1j * _TWO_PI * np.mod(float(cycles_per_sample) * j, 1.0))
+
+
+@dataclass(frozen=True)
+class DemodBlock:
+    """One call's output of `FmDemodulator.process_block`.
+
+    Attributes
+    ----------
+    inst_hz : numpy.ndarray
+        Instantaneous frequency offset from the demodulator's carrier in Hz, as returned
+        by `FmDemodulator.process` (droop-equalised when the demodulator does that).
+    step_hz : numpy.ndarray
+        The discriminator's raw output aligned with the baseband: step_hz[k] is
+        angle(z[k] conj(z[k-1])) * fs_out / (2 pi) for baseband sample z[k] of this call
+        (float32 arithmetic, about 1e-7 rad a step); step_hz[0] is 0 (not used).
+    fs_out_hz : float
+        Output (baseband) sample rate in Hz.
+    start_index : int
+        Index of this call's first baseband sample counted from the first baseband
+        sample since the demodulator started (or was reset): sample k is at time
+        (start_index + k) / fs_out_hz on that run's baseband clock.
+    """
+
+    inst_hz: np.ndarray
+    step_hz: np.ndarray
+    fs_out_hz: float
+    start_index: int
+    _v: np.ndarray
+    _v_index: int
+    _mix_cycles: float
+
+    @property
+    def n_baseband(self) -> int:
+        """Number of baseband samples of this call."""
+        return int(self._v.size)
+
+    def baseband(self, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """Complex baseband samples [start, stop) of this call (computed on request).
+
+        Mixed by -carrier_hz, filtered and decimated; real input is scaled by 2 so a
+        carrier A cos(...) gives amplitude A.
+        """
+        v = self._v[start:stop]
+        lo = start if start >= 0 else max(0, self._v.size + start)
+        j = np.arange(self._v_index + lo, self._v_index + lo + v.size)
+        return v * _nco(self._mix_cycles, j)
+
+    def baseband_at(self, idx: np.ndarray) -> np.ndarray:
+        """Complex baseband samples at the given indices of this call."""
+        idx = np.asarray(idx, dtype=np.int64)
+        return self._v[idx] * _nco_at(self._mix_cycles, self._v_index + idx)
+
+    def angle_at(self, idx: np.ndarray) -> np.ndarray:
+        """Angles of the baseband samples at the given indices, modulo 2 pi (exact)."""
+        idx = np.asarray(idx, dtype=np.int64)
+        mix = np.mod(self._mix_cycles * (self._v_index + idx), 1.0)
+        return np.angle(self._v[idx]) - _TWO_PI * mix
+
+    def envelope(self) -> np.ndarray:
+        """|baseband| (the mixer does not change it)."""
+        return np.abs(self._v)
+
+
+@dataclass(frozen=True)
+class PhaseLine:
+    """Least-squares line through the unwrapped baseband phase of a `DemodBlock`.
+
+    Attributes
+    ----------
+    offset_hz : float
+        Slope / (2 pi): the carrier's offset from the demodulator's carrier.
+    phase_rad : float
+        The line at the block's centre time (unwrapped from the first sample's angle).
+    t_center_s : float
+        That centre, (n - 1) / 2 / fs_out after the block's first baseband sample.
+    sigma_offset_hz, sigma_phase_rad : float
+        1-sigma uncertainties for white phase noise of variance var(|z|) / mean(|z|)^2
+        (noise splits equally between the envelope and the phase of a constant-envelope
+        signal).
+    cnr : float
+        Carrier-to-noise power ratio in the baseband's bandwidth, 1 / (2 var_phase).
+    n_samples : int
+        Baseband samples used.
+    """
+
+    offset_hz: float
+    phase_rad: float
+    t_center_s: float
+    sigma_offset_hz: float
+    sigma_phase_rad: float
+    cnr: float
+    n_samples: int
+
+
+# Anchor spacing of `phase_line`: the float32 discriminator's rounding drifts the running
+# phase by at most about 1e-7 rad a step; exact angles every this many samples bring it
+# back, and a straight line between anchors takes out the drift of a steady carrier.
+_PHASE_ANCHOR = 32
+_PHASE_WEIGHTS: dict[int, tuple] = {}
+
+
+def _phase_weights(n: int) -> tuple:
+    """Per-length constants of `phase_line`: anchors, t, and the weights that turn the
+    phase steps and the anchors' corrections into sum(phase) and sum(t * phase)."""
+    w = _PHASE_WEIGHTS.get(n)
+    if w is not None:
+        return w
+    if len(_PHASE_WEIGHTS) >= 16:
+        _PHASE_WEIGHTS.pop(next(iter(_PHASE_WEIGHTS)))
+    m = _PHASE_ANCHOR
+    anchors = np.arange(0, n, m)
+    if anchors[-1] != n - 1:
+        anchors = np.append(anchors, n - 1)
+    k = np.arange(n, dtype=np.float64)
+    t = k - (n - 1) / 2.0  # in samples
+    # sum_k sum_{j<=k} s[j] = sum_j s[j] (n - j); sum_k t_k sum_{j<=k} s[j] = sum_j s[j] T_j
+    w0 = n - k
+    w1 = np.cumsum(t[::-1])[::-1]
+    # hat functions of the piecewise-linear correction through the anchors
+    seg = np.minimum(np.searchsorted(anchors, k, side="right") - 1, anchors.size - 2)
+    left = anchors[seg]
+    span = (anchors[seg + 1] - left).astype(np.float64)
+    u = (k - left) / span
+    nodes = anchors.size
+    h0 = np.bincount(seg, 1.0 - u, nodes) + np.bincount(seg + 1, u, nodes)
+    h1 = np.bincount(seg, t * (1.0 - u), nodes) + np.bincount(seg + 1, t * u, nodes)
+    w = (anchors, w0, w1, h0, h1, float(np.dot(t, t)))
+    _PHASE_WEIGHTS[n] = w
+    return w
+
+
+def phase_line(block: DemodBlock) -> PhaseLine:
+    """Least-squares line through the unwrapped phase of a block's baseband.
+
+    Equals a fit of ``numpy.unwrap(numpy.angle(z))`` against time to rounding (the
+    tests check it), at a fraction of the cost: the unwrapped phase is the running sum
+    of the discriminator's phase steps, whose float32 rounding is taken out by exact
+    angles every 32 samples; the sums of the fit are dot products of the steps with
+    fixed weights, so the phase itself is never formed.
+
+    Parameters
+    ----------
+    block : DemodBlock
+        At least 2 baseband samples.
+
+    Returns
+    -------
+    PhaseLine
+
+    Raises
+    ------
+    ValueError
+        If the block has fewer than 2 baseband samples.
+    """
+    n = block.n_baseband
+    if n < 2:
+        raise ValueError(f"block has {n} baseband samples; at least 2 are needed")
+    fs = block.fs_out_hz
+    rad = _TWO_PI / fs
+    anchors, w0, w1, h0, h1, tt = _phase_weights(n)
+    s = block.step_hz  # s[0] = 0
+    theta = block.angle_at(anchors)
+    theta[0] = math.remainder(float(theta[0]), _TWO_PI)  # in [-pi, pi], as numpy.angle
+    # the running sum at the anchors: sums over (a_i, a_{i+1}]
+    seg = np.add.reduceat(s, anchors[:-1] + 1) * rad
+    run = np.concatenate(([0.0], np.cumsum(seg)))
+    e = theta - theta[0] - run
+    e -= _TWO_PI * np.round(e / _TWO_PI)
+    s0 = n * float(theta[0]) + float(np.dot(s, w0)) * rad + float(np.dot(e, h0))
+    s1 = float(np.dot(s, w1)) * rad + float(np.dot(e, h1))
+    slope = s1 / tt  # rad per sample
+    mean_ph = s0 / n
+    env = block.envelope()
+    a = float(env.sum()) / n
+    env -= a
+    var_env = float(np.dot(env, env)) / n
+    sigma_ph2 = max(var_env / (a * a), 1e-30) if a > 0 else math.inf
+    tt_s = tt / (fs * fs)
+    return PhaseLine(
+        offset_hz=slope * fs / _TWO_PI,
+        phase_rad=mean_ph,
+        t_center_s=(n - 1) / 2.0 / fs,
+        sigma_offset_hz=math.sqrt(sigma_ph2 / tt_s) / _TWO_PI,
+        sigma_phase_rad=math.sqrt(sigma_ph2 / n),
+        cnr=0.5 / sigma_ph2 if sigma_ph2 > 0 else math.inf,
+        n_samples=n,
+    )
 
 
 # --------------------------------------------------------------------------------------
@@ -651,7 +931,9 @@ def _parabolic_peak(x: np.ndarray, i: int) -> float:
     return b - 0.25 * (a - c) * p
 
 
-def deviation_figures(inst_freq_hz, *, interpolate_peaks: bool = True) -> DeviationFigures:
+def deviation_figures(
+    inst_freq_hz, *, interpolate_peaks: bool = True, check_finite: bool = True
+) -> DeviationFigures:
     """Peak, average-peak, RMS and mean deviation of an instantaneous-frequency record.
 
     Pass the discriminator output *after* the post-demodulation filter (audio band and,
@@ -667,6 +949,9 @@ def deviation_figures(inst_freq_hz, *, interpolate_peaks: bool = True) -> Deviat
         Refine the largest and smallest sample by a parabola through it and its two
         neighbours, so the peak of a tone sampled at 20 points per cycle is read within
         0.03% instead of up to 1.2% low (default True).
+    check_finite : bool
+        Check for NaN and inf (default True); a caller whose samples are finite by
+        construction can skip the pass.
 
     Returns
     -------
@@ -682,8 +967,9 @@ def deviation_figures(inst_freq_hz, *, interpolate_peaks: bool = True) -> Deviat
     x = _as_real_1d("inst_freq_hz", inst_freq_hz)
     if x.size == 0:
         raise ValueError("inst_freq_hz is empty (0 samples)")
-    if not np.all(np.isfinite(x)):
-        raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
+    if check_finite and not np.isfinite(np.dot(x, x)):  # inf or NaN anywhere shows here
+        if not np.all(np.isfinite(x)):
+            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
     imax = int(np.argmax(x))
     imin = int(np.argmin(x))
     if interpolate_peaks:
@@ -691,8 +977,10 @@ def deviation_figures(inst_freq_hz, *, interpolate_peaks: bool = True) -> Deviat
         pmin = -_parabolic_peak(-x, imin)
     else:
         pmax, pmin = float(x[imax]), float(x[imin])
-    mean = float(np.mean(x))
-    rms = float(np.sqrt(np.mean((x - mean) ** 2)))
+    n = x.size
+    mean = float(x.sum()) / n
+    d = x - mean
+    rms = math.sqrt(float(np.dot(d, d)) / n)
     return DeviationFigures(
         peak_pos_hz=pmax,
         peak_neg_hz=pmin,
@@ -753,14 +1041,23 @@ class DeviationHistogram:
         self._first //= 2
         self.bin_hz *= 2.0
 
-    def update(self, inst_freq_hz) -> None:
-        """Add samples (Hz, finite, 1-D). Empty input is a no-op."""
+    def update(self, inst_freq_hz, *, check_finite: bool = True) -> None:
+        """Add samples (Hz, finite, 1-D). Empty input is a no-op.
+
+        With check_finite=False the caller vouches that the samples are finite."""
         x = _as_real_1d("inst_freq_hz", inst_freq_hz)
         if x.size == 0:
             return
-        if not np.all(np.isfinite(x)):
-            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
         lo_v, hi_v = float(x.min()), float(x.max())
+        if check_finite and not (math.isfinite(lo_v) and math.isfinite(hi_v)):
+            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
+        self._cover(lo_v, hi_v)
+        idx = np.floor(x / self.bin_hz).astype(np.int64)
+        idx -= self._first
+        self._counts += np.bincount(idx, minlength=self._counts.size)
+
+    def _cover(self, lo_v: float, hi_v: float) -> None:
+        """Widen the bins (merging pairs) and grow the range until lo_v..hi_v fit."""
         while True:
             lo = math.floor(lo_v / self.bin_hz)
             hi = math.floor(hi_v / self.bin_hz)
@@ -779,9 +1076,41 @@ class DeviationHistogram:
             grown[off : off + self._counts.size] = self._counts
             self._counts = grown
             self._first = lo
-        idx = np.floor(x / self.bin_hz).astype(np.int64) - self._first
-        np.clip(idx, 0, self._counts.size - 1, out=idx)
-        self._counts += np.bincount(idx, minlength=self._counts.size)
+
+    def merge(self, other: DeviationHistogram) -> None:
+        """Add the counts of `other` (made with the same initial bin width): the result
+        is the histogram one instance fed both streams would hold, count for count
+        (bins only ever merge in pairs whose edges are multiples of the width)."""
+        if not other._counts.size:
+            return
+        if not self._counts.size:
+            self.bin_hz, self._first, self._counts = (
+                other.bin_hz,
+                other._first,
+                other._counts.copy(),
+            )
+            return
+        counts, first, width = other._counts, other._first, other.bin_hz
+        ratio = width / self.bin_hz
+        if ratio < 1.0:  # other is finer: bring a copy of it to our width
+            twin = DeviationHistogram(width, max_bins=self.max_bins)
+            twin._counts, twin._first = counts.copy(), first
+            while twin.bin_hz < self.bin_hz:
+                twin._merge()
+            counts, first, width = twin._counts, twin._first, twin.bin_hz
+        while self.bin_hz < width:
+            self._merge()
+        if not math.isclose(self.bin_hz, width, rel_tol=1e-12):
+            raise ValueError(f"bin widths {self.bin_hz} and {width} do not share a base width")
+        self._cover(first * width, (first + counts.size) * width - 0.5 * width)
+        if self.bin_hz > width:  # covering widened our bins: widen theirs alike
+            twin = DeviationHistogram(width, max_bins=self.max_bins)
+            twin._counts, twin._first = counts.copy(), first
+            while twin.bin_hz < self.bin_hz:
+                twin._merge()
+            counts, first = twin._counts, twin._first
+        off = first - self._first
+        self._counts[off : off + counts.size] += counts
 
     def exceeded_hz(self, fraction: float) -> float:
         """|deviation| exceeded by the given fraction of samples (e.g. 0.01 for 1%).
@@ -883,18 +1212,36 @@ class ModulationPower:
 class ModulationPowerMeter:
     """Streaming BS.412 power: mean square per consecutive window, maximum reported.
 
+    Windows are consecutive stretches of ``window_s`` on the sample clock, counted from
+    index 0 of the stream. Samples that are not measured (a filter settling) can be
+    stepped over with `skip`: they move the clock but add nothing, and a window's power
+    is the mean square of the samples it holds. A meter for a later part of a stream
+    starts at that part's ``start_index``; `merge` joins it to the meter of the part
+    before, so parts measured apart give what one meter gives.
+
     Parameters
     ----------
     fs_hz : float
         Sample rate of the instantaneous-frequency input.
     window_s : float
         Window length (BS.412: 60 s).
+    start_index : int
+        Clock index of the first sample (default 0, the start of the stream).
     """
 
-    def __init__(self, fs_hz: float, *, window_s: float = 60.0) -> None:
+    def __init__(self, fs_hz: float, *, window_s: float = 60.0, start_index: int = 0) -> None:
         self.fs_hz = _positive_finite("fs_hz", fs_hz)
         self.window_s = _positive_finite("window_s", window_s)
+        if isinstance(start_index, bool) or not isinstance(start_index, (int, np.integer)):
+            raise TypeError(f"start_index must be an int, got {type(start_index).__name__}")
+        if start_index < 0:
+            raise ValueError(f"start_index={start_index} must be >= 0")
         self._win = max(1, round(self.window_s * self.fs_hz))
+        self._origin = self._pos = int(start_index)
+        # the first window began before this meter's first sample: its share here is
+        # handed to `merge` (as _head) instead of being counted as a window
+        self._mid_start = self._origin % self._win != 0
+        self._head: tuple[float, int] | None = None
         self._acc = 0.0
         self._acc_n = 0
         self._best = -math.inf
@@ -902,26 +1249,80 @@ class ModulationPowerMeter:
         self._all = 0.0
         self._all_n = 0
 
-    def update(self, inst_freq_hz) -> None:
+    def _close(self) -> None:
+        if self._mid_start and self._head is None:
+            self._head = (self._acc, self._acc_n)
+        elif self._acc_n:
+            self._best = max(self._best, self._acc / self._acc_n)
+            self._nwin += 1
+        self._acc, self._acc_n = 0.0, 0
+
+    def skip(self, n: int) -> None:
+        """Move the clock over n samples that are not measured."""
+        n = int(n)
+        if n < 0:
+            raise ValueError(f"n={n} must be >= 0")
+        while n:
+            take = min(self._win - self._pos % self._win, n)
+            self._pos += take
+            n -= take
+            if self._pos % self._win == 0:
+                self._close()
+
+    def update(self, inst_freq_hz, *, check_finite: bool = True) -> None:
         """Add samples of instantaneous deviation in Hz (empty input is a no-op)."""
         x = _as_real_1d("inst_freq_hz", inst_freq_hz)
         if x.size == 0:
             return
-        if not np.all(np.isfinite(x)):
-            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
-        sq = x * x
-        self._all += float(sq.sum())
-        self._all_n += sq.size
         pos = 0
-        while pos < sq.size:
-            take = min(self._win - self._acc_n, sq.size - pos)
-            self._acc += float(sq[pos : pos + take].sum())
+        total = 0.0
+        while pos < x.size:
+            take = min(self._win - self._pos % self._win, x.size - pos)
+            piece = x[pos : pos + take]
+            sq = float(np.dot(piece, piece))
+            self._acc += sq
             self._acc_n += take
+            total += sq
             pos += take
-            if self._acc_n == self._win:
-                self._best = max(self._best, self._acc / self._win)
-                self._nwin += 1
-                self._acc, self._acc_n = 0.0, 0
+            self._pos += take
+            if self._pos % self._win == 0:
+                self._close()
+        if check_finite and not math.isfinite(total) and not np.all(np.isfinite(x)):
+            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
+        self._all += total
+        self._all_n += x.size
+
+    def merge(self, later: ModulationPowerMeter) -> None:
+        """Append the meter of the part of the stream right after this one's.
+
+        Raises
+        ------
+        ValueError
+            If `later` does not start where this meter's clock stands, or the window
+            lengths differ.
+        """
+        if later._win != self._win:
+            raise ValueError(f"window lengths differ ({self._win} and {later._win} samples)")
+        if later._origin != self._pos:
+            raise ValueError(
+                f"the later meter starts at sample {later._origin}, this one stands at {self._pos}"
+            )
+        if later._mid_start:
+            if later._head is not None:  # later closed the window this one had open
+                self._acc += later._head[0]
+                self._acc_n += later._head[1]
+                self._close()
+                self._acc, self._acc_n = later._acc, later._acc_n
+            else:  # the same window is still open at later's end
+                self._acc += later._acc
+                self._acc_n += later._acc_n
+        else:
+            self._acc, self._acc_n = later._acc, later._acc_n
+        self._best = max(self._best, later._best)
+        self._nwin += later._nwin
+        self._all += later._all
+        self._all_n += later._all_n
+        self._pos = later._pos
 
     def result(self) -> ModulationPower:
         """The power so far.

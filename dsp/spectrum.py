@@ -163,14 +163,22 @@ class SpectrumAverager:
         self._buf = np.zeros(0, dtype=np.float64 if kind == "real" else np.complex128)
         self._acc = np.zeros(self.nfft // 2 + 1 if kind == "real" else self.nfft)
         self._count = 0
+        self._weight = 0.0
 
     @property
     def averages(self) -> int:
         """Segments accumulated so far."""
         return self._count
 
-    def update(self, samples) -> None:
-        """Add samples (any length, including 0)."""
+    def update(self, samples, *, weight: float = 1.0) -> None:
+        """Add samples (any length, including 0).
+
+        Each segment completed here enters the average with the given weight (> 0): a
+        caller that takes four segments from some stretches and one from others can
+        weight each stretch alike."""
+        weight = float(weight)
+        if not (math.isfinite(weight) and weight > 0):
+            raise ValueError(f"weight={weight} must be finite and > 0")
         a = np.asarray(samples)
         if a.ndim > 1:
             raise ValueError(f"samples must be one-dimensional, got shape {a.shape}")
@@ -180,21 +188,44 @@ class SpectrumAverager:
             raise TypeError(f"samples must be numeric, got dtype {a.dtype}")
         if a.size == 0:
             return
-        buf = np.concatenate((self._buf, a.astype(self._buf.dtype)))
         n = self.nfft
-        nseg = 0 if buf.size < n else (buf.size - n) // self._hop + 1
-        if nseg:
+        if self._buf.size == 0 and self._hop == n:
+            # segments side by side, nothing held over: a reshape, no copy
+            buf = a.astype(self._buf.dtype, copy=False)
+            nseg = buf.size // n
+            view = buf[: nseg * n].reshape(nseg, n)
+        else:
+            buf = np.concatenate((self._buf, a.astype(self._buf.dtype)))
+            nseg = 0 if buf.size < n else (buf.size - n) // self._hop + 1
             view = np.lib.stride_tricks.sliding_window_view(buf, n)[:: self._hop][:nseg]
+        if nseg:
             # Batches bound the temporary memory for long records.
             for b in range(0, nseg, 128):
                 seg = view[b : b + 128] * self._win
                 if self.kind == "real":
-                    spec = sfft.rfft(seg, axis=1)
+                    spec = sfft.rfft(seg, axis=1, overwrite_x=True)
                 else:
-                    spec = sfft.fft(seg, axis=1)
-                self._acc += (spec.real**2 + spec.imag**2).sum(axis=0)
+                    spec = sfft.fft(seg, axis=1, overwrite_x=True)
+                pw = spec.real**2
+                pw += spec.imag**2
+                pw = pw.sum(axis=0) if pw.shape[0] > 1 else pw[0]
+                if weight != 1.0:
+                    pw *= weight
+                self._acc += pw
             self._count += nseg
+            self._weight += weight * nseg
         self._buf = buf[nseg * self._hop :].copy()
+
+    def merge(self, other: SpectrumAverager) -> None:
+        """Add the segments of `other` (same rate, length, kind and window); samples it
+        holds that complete no segment are dropped."""
+        if (other.fs_hz, other.nfft, other.kind) != (self.fs_hz, self.nfft, self.kind) or not (
+            np.array_equal(other._win, self._win)
+        ):
+            raise ValueError("spectra of different rates, lengths, kinds or windows")
+        self._acc += other._acc
+        self._count += other._count
+        self._weight += other._weight
 
     def result(self) -> Spectrum:
         """The averaged spectrum.
@@ -208,7 +239,7 @@ class SpectrumAverager:
             raise ValueError(f"no complete segment yet (need nfft={self.nfft} samples)")
         n = self.nfft
         w = self._win
-        p = self._acc / (self._count * w.sum() ** 2)
+        p = self._acc / (self._weight * w.sum() ** 2)
         if self.kind == "real":
             p = p.copy()
             p[1 : (n + 1) // 2] *= 2.0  # fold negative frequencies (not DC or Nyquist)

@@ -32,11 +32,23 @@ _DEMOD_FIELDS = ("snr_db", "sinad_db", "thd_percent", "thd_n_percent")
 SETTLE_S = {"none": 0.005, "300-3000": 0.03, "20-15k": 0.3}
 # Output rate each post-demodulation filter needs (2.2 x its upper edge).
 POST_MIN_RATE = {"300-3000": 6600.0, "20-15k": 33000.0}
+# Upper edge of each post-demodulation filter: the discriminator's droop equaliser is
+# fitted up to there (up to half the IF bandwidth without a filter).
+POST_UPPER_HZ = {"300-3000": 3000.0, "20-15k": 15000.0}
+# The demodulator's output rate is at least this times the IF bandwidth: enough for the
+# IF filter's transition band (a fifth of the bandwidth); everything after the
+# discriminator runs at this rate, so it is kept low.
+IF_OVERSAMPLE = 1.2
 DEEMPHASIS = {"none": None, "50us": 50e-6, "75us": 75e-6}
 MIN_IF_BANDWIDTH_HZ = 200.0
 # The carrier cluster must stand this far above the spectral floor (dB) to count.
 CARRIER_MIN_SNR_DB = 15.0
+# The averaged baseband spectrum (bandwidths) takes this many segments from each of the
+# first SPECTRUM_FULL_GATES gates of a stream, then one a gate (its place moving through
+# the gate), each gate weighted alike: short records still get a smooth spectrum, long
+# ones do not pay for four.
 SPECTRUM_SEGMENTS_PER_GATE = 4
+SPECTRUM_FULL_GATES = 8
 # An IF band holding less of the signal's power than this gives no trustworthy deviation.
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
@@ -235,43 +247,6 @@ def power_fraction_within(x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, 
     return float(p[sel].sum()) / total
 
 
-def _phase_line(z: np.ndarray, inst_hz: np.ndarray, fs_hz: float):
-    """Least-squares line through the baseband phase of one gate.
-
-    The phase is built from the discriminator's own output (its running sum, anchored at
-    the first sample's angle), which costs far less than unwrapping angles again.
-    Returns (offset_hz, phase_at_centre, t_centre_s, sigma_f_hz, sigma_phase, cnr_linear);
-    the uncertainties are those of white phase noise with variance var(|z|)/mean(|z|)^2
-    (noise splits equally between the envelope and the phase of a constant-envelope
-    signal).
-    """
-    n = inst_hz.shape[0]
-    # The discriminator's output k belongs to baseband sample j0 + k (its last output is
-    # one sample behind the last baseband sample, after the droop equaliser's delay).
-    j0 = z.shape[0] - n - 1
-    if j0 < 0 or n < 16:
-        ph = np.unwrap(np.angle(z))
-        j0, n = 0, z.shape[0]
-    else:
-        ph = np.cumsum(inst_hz) * (2 * np.pi / fs_hz)
-        # anchor the running sum to the baseband's angle (circular mean over a stride)
-        idx = np.arange(0, n, max(1, n // 64))
-        ph += float(np.angle(np.sum(z[j0 + idx] * np.exp(-1j * ph[idx]))))
-    t = (np.arange(n) - (n - 1) / 2.0) / fs_hz
-    tt = float(np.dot(t, t))
-    mean_ph = float(ph.mean())
-    slope = float(np.dot(t, ph)) / tt
-    env = np.abs(z)
-    a = float(env.mean())
-    var_env = float(env.var())
-    sigma_ph2 = max(var_env / (a * a), 1e-30) if a > 0 else math.inf
-    sigma_f = math.sqrt(sigma_ph2 / tt) / (2 * math.pi)
-    sigma_p = math.sqrt(sigma_ph2 / n)
-    cnr = 0.5 / sigma_ph2 if sigma_ph2 > 0 else math.inf
-    t_c = (j0 + (n - 1) / 2.0) / fs_hz
-    return slope / (2 * math.pi), mean_ph, t_c, sigma_f, sigma_p, cnr
-
-
 class FmProcessor:
     """`beat` and `iq` modes of the engine (see the module docstring)."""
 
@@ -309,7 +284,7 @@ class FmProcessor:
         self._tone_amp_sum = 0.0
         self._tone_n = 0
         self._hold = 0.0
-        self._last_baseband: np.ndarray | None = None
+        self._last_baseband: dfm.DemodBlock | None = None  # the last gate's
         self._last_offset_hz = 0.0
         self._last_dev = np.zeros(0)
         self._run_t0 = 0.0
@@ -371,7 +346,13 @@ class FmProcessor:
             )
         try:
             self._demod = dfm.FmDemodulator(
-                self.fs, centroid, bw, kind=self.kind, min_fs_out_hz=need
+                self.fs,
+                centroid,
+                bw,
+                kind=self.kind,
+                min_fs_out_hz=need,
+                oversample=IF_OVERSAMPLE,
+                droop_band_hz=POST_UPPER_HZ.get(post, bw / 2.0),
             )
         except ValueError as exc:
             raise InputError(f"{self.meta.source}: cannot demodulate here: {exc}") from None
@@ -420,9 +401,11 @@ class FmProcessor:
             )
             if self.fms.iq_correct:
                 x = _iq_correct(x, health)
-        inst, z = self._demod.process_baseband(x)
+        block = self._demod.process_block(x)
+        inst = block.inst_hz
         demod = self._demod
-        if z.shape[0] < 32:
+        nz = block.n_baseband
+        if nz < 32:
             self.no_tone_gates += 1
             return Reading(
                 t_s=t_s, gate_s=x.shape[0] / self.fs, frequency_hz=None, uncertainty_hz=None,
@@ -430,18 +413,19 @@ class FmProcessor:
                 overflow=overflow, **lvl,
             )  # fmt: skip
         fs_out = demod.fs_out_hz
-        offset, phase, t_c, s_f, s_p, cnr = _phase_line(z, inst, fs_out)
+        line = dfm.phase_line(block)
+        offset, phase, t_c = line.offset_hz, line.phase_rad, line.t_center_s
+        s_f, s_p, cnr = line.sigma_offset_hz, line.sigma_phase_rad, line.cnr
         cnr_db = 10 * math.log10(cnr) if cnr > 0 else -math.inf
         carrier = self._carrier.nco_hz + offset
         # Baseband samples of one demodulator run are consecutive, so their count fixes
         # each gate's time up to a constant, which is all the phase join needs; the join
         # follows the baseband phase, i.e. the offset from the mixer.
         t_ref = self._run_t0 + self._z_count / fs_out + t_c
-        self._z_count += z.shape[0]
+        self._z_count += nz
         self._gates.append(t_ref, offset, s_f, phase, s_p, float(contiguous and not overflow), cnr)
-        # a share of each gate is plenty for the averaged spectrum (bandwidths)
-        self._spec.update(z[: SPECTRUM_SEGMENTS_PER_GATE * self._spec.nfft])
-        self._last_baseband = z
+        self._spectrum_update(block, self._gate_index - 1)
+        self._last_baseband = block
         self._last_offset_hz = offset
         dev = inst - offset
         dev_f = self._post(dev)
@@ -449,14 +433,16 @@ class FmProcessor:
             cut = min(self._settle, dev_f.shape[0] // 2)
             dev_f = dev_f[cut:]
             self._settle -= cut
+            self._power.skip(cut)
         self._last_dev = dev_f
-        figs = dfm.deviation_figures(dev_f)
+        # the discriminator's output is finite by construction (so is the filter's)
+        figs = dfm.deviation_figures(dev_f, check_finite=False)
         self._dev_n += figs.n_samples
         self._dev_ms_n += figs.rms_hz**2 * figs.n_samples
         self._dev_peak_pos = max(self._dev_peak_pos, figs.peak_pos_hz)
         self._dev_peak_neg = min(self._dev_peak_neg, figs.peak_neg_hz)
-        self._hist.update(dev_f)
-        self._power.update(dev_f)
+        self._hist.update(dev_f, check_finite=False)
+        self._power.update(dev_f, check_finite=False)
         self._hold = max(self._hold, figs.peak_pos_hz, -figs.peak_neg_hz)
         tone = None
         qual = None
@@ -479,17 +465,17 @@ class FmProcessor:
                 w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
                 self._tone_w += w
                 self._tone_wf += w * tone.frequency_hz
-                self._tone_amp_sum += tone.amplitude
+                # the tone's deviation without the discriminator's residual droop
+                tone_amp = tone.amplitude / float(demod.droop_response(tone.frequency_hz))
+                self._tone_amp_sum += tone_amp
                 self._tone_n += 1
                 if 0 < tone.frequency_hz < fs_out / 2:
                     # the spur search (the dearest part) on a sample of gates, as in
                     # audio mode (engine.QualitySchedule)
+                    # no hum fit: hum on the modulation is noise here (SNR counts it
+                    # so either way), and its own figure is not reported
                     qual = dq.measure_quality(
-                        dev_f,
-                        fs_out,
-                        fundamental_hz=tone.frequency_hz,
-                        sfdr=full,
-                        mains=self._schedule.mains_for(dev_f.shape[0], fs_out),
+                        dev_f, fs_out, fundamental_hz=tone.frequency_hz, sfdr=full, mains=None
                     )
                     self._schedule.measured(qual, full)
                     self._quality.add(qual)
@@ -500,7 +486,7 @@ class FmProcessor:
         k = self.k
         rf = rf_from_carrier(self.meta, carrier * k)
         n_h = max(1, self.meta.harmonic)
-        mod_index = tone.amplitude / tone.frequency_hz if tone is not None else None
+        mod_index = tone_amp / tone.frequency_hz if tone is not None else None
         return Reading(
             t_s=t_s,
             gate_s=x.shape[0] / self.fs,
@@ -526,6 +512,19 @@ class FmProcessor:
             **lvl,
         )
 
+    def _spectrum_update(self, block: dfm.DemodBlock, gate_index: int) -> None:
+        """A share of each gate for the averaged spectrum (see SPECTRUM_FULL_GATES)."""
+        nfft = self._spec.nfft
+        have = block.n_baseband // nfft
+        if not have:
+            return
+        if gate_index < SPECTRUM_FULL_GATES:
+            k = min(have, SPECTRUM_SEGMENTS_PER_GATE)
+            self._spec.update(block.baseband(0, k * nfft), weight=1.0 / k)
+        else:
+            a = (gate_index % min(have, SPECTRUM_SEGMENTS_PER_GATE)) * nfft
+            self._spec.update(block.baseband(a, a + nfft))
+
     def _restart_run(self, t_s: float) -> None:
         """A new demodulator run: forget filter state, let the filters settle again."""
         self._post_zi = None
@@ -550,7 +549,7 @@ class FmProcessor:
 
         if self._last_baseband is not None and self._demod is not None:
             fs_out = self._demod.fs_out_hz
-            freqs, db = spectrum_view(self._last_baseband, fs_out)
+            freqs, db = spectrum_view(self._last_baseband.baseband(), fs_out)
             base = self._carrier.nco_hz
             freqs = freqs + base
             markers: tuple[float, ...] = (base + self._last_offset_hz,)
@@ -696,7 +695,7 @@ class FmProcessor:
         )
 
     def _bessel(self, fm_hz: float) -> BesselSummary | None:
-        z = self._last_baseband
+        z = self._last_baseband.baseband()
         fs_out = self._demod.fs_out_hz
         beta_guess = (
             (self._last_tone.amplitude / self._last_tone.frequency_hz) if self._last_tone else 1

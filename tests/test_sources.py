@@ -75,6 +75,29 @@ class TestSoundFileSource:
             iq = read_all(SoundFileSource(path, mode="iq", block_frames=777))
             np.testing.assert_array_equal(iq, want[:, 0] + 1j * want[:, 1])
 
+    @pytest.mark.parametrize("fmt", ["WAV", "RF64", "W64"])
+    def test_float_reads_equal_libsndfile_conversion(self, tmp_path, fmt):
+        # 32-bit float is read as stored and widened by numpy; the values must be exactly
+        # those of libsndfile's own conversion to float64 (the reference), beyond full
+        # scale too, and a NaN is still found and replaced
+        x = reference_signal() * 1.7
+        x = np.stack([x, -x[::-1]], axis=1)
+        ext = {"WAV": "wav", "RF64": "wav", "W64": "w64"}[fmt]
+        path = tmp_path / f"f.{ext}"
+        sf.write(path, x, 8000, format=fmt, subtype="FLOAT")
+        want, _ = sf.read(path, dtype="float64", always_2d=True)
+        for ch in range(2):
+            got = read_all(SoundFileSource(path, channel=ch, block_frames=777))
+            np.testing.assert_array_equal(got, want[:, ch])
+        iq = read_all(SoundFileSource(path, mode="iq", block_frames=777))
+        np.testing.assert_array_equal(iq, want[:, 0] + 1j * want[:, 1])
+        x[100, 1] = np.nan
+        sf.write(path, x, 8000, format=fmt, subtype="FLOAT")
+        src = SoundFileSource(path, mode="iq", block_frames=777)
+        iq = read_all(src)
+        assert np.isfinite(iq).all() and iq[100] == 0
+        assert any("NaN" in w for w in src.warnings)
+
     # sox (an independent writer) converts one 16-bit file into every variant; all read
     # back as the same samples to within each variant's quantisation.
     SOX_VARIANTS = (
