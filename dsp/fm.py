@@ -22,8 +22,8 @@ from scipy.optimize import minimize_scalar
 __all__ = [
     "BS412_REFERENCE_DEVIATION_HZ",
     "BesselFit",
-    "DeviationFigures",
     "DemodBlock",
+    "DeviationFigures",
     "DeviationHistogram",
     "FmDemodulator",
     "ModulationPower",
