@@ -22,12 +22,11 @@ Targets: <= 15 % of a core at 48 kHz, <= 40 % at 192 kHz I/Q, latency <= 150 ms 
 
 The soak runs the 48 kHz input alone at the 0.1 s gate (ten gates a second through the
 engine, the session's queues and the window) and samples, each minute, the resident
-memory, the size of the engine's per-gate record (every gate's tone figures, kept for the
-whole-session phase-coherent result: it grows by design), the readings of that minute
-and the dropped-block count. It reports memory growth per hour after the first ten
-minutes, with and without the record (without it, more than 1 MiB/h is a leak), and the
-first and last tenth of the readings compared in combined standard errors: "readings
-unchanged" means within 3.
+memory, the readings of that minute and the dropped-block count. The engine keeps running
+sums, not per-gate records, so memory must stay flat: it reports memory growth per hour
+after the first ten minutes (more than 1 MiB/h is a leak), and the first and last tenth
+of the readings compared in combined standard errors: "readings unchanged" means within
+3.
 """
 
 from __future__ import annotations
@@ -131,8 +130,7 @@ def run_case(
 
     With `sample_s` > 0, every `sample_s` seconds of the run the process's resident
     memory and the frequencies of the readings since the last sample are kept, under
-    "samples" as (seconds into the run, RSS MiB, frequencies, dropped blocks, MiB of the
-    engine's per-gate record)."""
+    "samples" as (seconds into the run, RSS MiB, frequencies, dropped blocks)."""
     os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     from pyqtgraph.Qt import QtCore, QtWidgets
 
@@ -149,7 +147,7 @@ def run_case(
     win = LiveWindow(config, save_settings=False, session_factory=factory)
     win.show()
     marks: dict[str, float] = {}
-    samples: list[tuple[float, float, np.ndarray, int, float]] = []
+    samples: list[tuple[float, float, np.ndarray, int]] = []
     seen = {"seq": 0}
 
     def sample():
@@ -160,9 +158,7 @@ def run_case(
             seen["seq"] = new[-1].seq
         f = np.array([lr.reading.frequency_hz for lr in new], float)
         t = time.monotonic() - marks["wall"]
-        eng = win.session.engine
-        record = eng.record_nbytes() / 2**20 if eng is not None else 0.0
-        samples.append((t, rss_mib(), f, win.session.stats.dropped_blocks, record))
+        samples.append((t, rss_mib(), f, win.session.stats.dropped_blocks))
 
     sampler = QtCore.QTimer()
     sampler.timeout.connect(sample)
@@ -215,22 +211,14 @@ def soak(minutes: float) -> int:
           f"window offscreen, {os.cpu_count()} CPUs ==")  # fmt: skip
     r = run_case("audio", 48000.0, minutes * 60.0, GATE_S, sample_s=min(60.0, minutes * 6))
     samples = r["samples"]
-    print(f"{'minute':>7} {'RSS MiB':>8} {'record MiB':>10} {'readings':>8} {'mean Hz':>16} "
-          f"{'dropped':>7}")  # fmt: skip
-    for t, rss, f, dropped, record in samples:
+    print(f"{'minute':>7} {'RSS MiB':>8} {'readings':>8} {'mean Hz':>16} {'dropped':>7}")
+    for t, rss, f, dropped in samples:
         mean = f"{np.nanmean(f):16.9f}" if f.size else f"{'-':>16}"
-        print(f"{t / 60:7.1f} {rss:8.1f} {record:10.2f} {f.size:8d} {mean} {dropped:7d}")
+        print(f"{t / 60:7.1f} {rss:8.1f} {f.size:8d} {mean} {dropped:7d}")
     t = np.array([s[0] for s in samples])
     rss = np.array([s[1] for s in samples])
-    record = np.array([s[4] for s in samples])
     after = t >= min(600.0, 0.2 * t[-1])  # start-up and the first caches are not a leak
-    if after.sum() >= 2:
-        growth = np.polyfit(t[after] / 3600.0, rss[after], 1)[0]
-        # the engine keeps every gate's tone figures for the whole-session summary (its
-        # table doubles as it fills): growth by design; anything else would be a leak
-        rest = np.polyfit(t[after] / 3600.0, rss[after] - record[after], 1)[0]
-    else:
-        growth = rest = math.nan
+    growth = np.polyfit(t[after] / 3600.0, rss[after], 1)[0] if after.sum() >= 2 else math.nan
     f = np.concatenate([s[2] for s in samples])
     f = f[np.isfinite(f)]
     k = max(2, f.size // 10)
@@ -238,16 +226,13 @@ def soak(minutes: float) -> int:
     se = math.hypot(a.std(ddof=1) / math.sqrt(a.size), b.std(ddof=1) / math.sqrt(b.size))
     shift = (b.mean() - a.mean()) / se if se > 0 else 0.0
     ok_drop = r["dropped_blocks"] == 0 and r["error"] is None
-    ok_mem = not rest > 1.0  # MiB per hour besides the record; NaN (no /proc) passes
+    ok_mem = not growth > 1.0  # MiB per hour; NaN (no /proc) passes
     ok_read = abs(shift) <= 3.0
     print(f"CPU {100 * r['cpu_share']:.1f}% of a core, {r['fps']:.1f} frames/s, latency median "
           f"{1000 * r['latency_median_s']:.0f} ms, p95 {1000 * r['latency_p95_s']:.0f} ms, "
           f"max {1000 * r['latency_max_s']:.0f} ms")  # fmt: skip
-    per_gate = 2**20 * record[-1] / max(1, r["readings"])
     print(f"memory: {rss[0]:.1f} MiB at the first sample, {rss[-1]:.1f} MiB at the end, "
-          f"{growth:+.2f} MiB/h after the first tenth; the per-gate record holds "
-          f"{record[-1]:.2f} MiB at the end ({per_gate:.0f} bytes a gate of capacity), "
-          f"everything else {rest:+.2f} MiB/h; {_verdict(ok_mem)}")  # fmt: skip
+          f"{growth:+.2f} MiB/h after the first tenth; {_verdict(ok_mem)}")  # fmt: skip
     print(f"readings: {r['readings']} gates; first tenth {a.mean():.9f} Hz, last tenth "
           f"{b.mean():.9f} Hz, {shift:+.2f} combined standard errors; "
           f"{_verdict(ok_read)}")  # fmt: skip

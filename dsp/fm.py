@@ -455,6 +455,37 @@ class FmDemodulator:
             h = h * (np.cos(_TWO_PI * np.multiply.outer(x, k)) @ self._eq)
         return h
 
+    def outputs_for(self, n_input: int) -> int:
+        """Output samples a fresh demodulator gives for its first n_input samples (in
+        any split into calls): the output clock's reading at input sample n_input."""
+        m = int(n_input)
+        eq = 0 if self._eq is None else self._eq.size - 1
+        return max(0, -(-m // self.decimation) - self._first_j - eq)
+
+    def seek(self, n_input: int) -> None:
+        """Forget all state and continue as if n_input samples had been given: outputs
+        keep the grid, indices and mixer phase of a demodulator that was fed the stream
+        from its start. The filter history, the discriminator's last sample and the
+        equaliser's tail are unknown (zero) until the numtaps + 2 * decimation * (taps of
+        the equaliser) samples after n_input have passed; feed those and discard what
+        they give, and the outputs are those of a demodulator that read everything."""
+        m = int(n_input)
+        if m < 0:
+            raise ValueError(f"n_input={n_input} must be >= 0")
+        self.reset()
+        d = self.decimation
+        j0 = -(-m // d)
+        # the virtual buffer hist ++ input starts at input index j0 * d - pad
+        self._hist = np.zeros(self._pad - (j0 * d - m), dtype=self._hist.dtype)
+        self._j0 = j0
+        self._m = m
+
+    @property
+    def settle_inputs(self) -> int:
+        """Input samples after `seek` until the outputs are those of one pass."""
+        taps = 0 if self._eq is None else self._eq.size
+        return self.numtaps + self.decimation * (taps + 2)
+
     # ----------------------------------------------------------------------------------
     def reset(self) -> None:
         """Forget all state, as if newly created."""

@@ -21,7 +21,14 @@ import numpy as np
 
 from dsp.fm import modulation_index
 
-__all__ = ["IqHealth", "image_rejection_db", "iq_correct", "iq_health", "modulation_index"]
+__all__ = [
+    "IqHealth",
+    "IqStatistics",
+    "image_rejection_db",
+    "iq_correct",
+    "iq_health",
+    "modulation_index",
+]
 
 
 @dataclass(frozen=True)
@@ -40,6 +47,9 @@ class IqHealth:
         Power ratio of a tone to its image at the mirror frequency (inf when ideal).
     n_samples : int
         Samples used.
+    var_i, var_q, cov_iq : float
+        Central second moments of the arms (E[I'^2], E[Q'^2], E[I'Q'] about the means),
+        from which the other figures follow; `IqStatistics` pools them over gates.
     """
 
     dc_i: float
@@ -48,6 +58,9 @@ class IqHealth:
     phase_imbalance_deg: float
     image_rejection_db: float
     n_samples: int
+    var_i: float = math.nan
+    var_q: float = math.nan
+    cov_iq: float = math.nan
 
 
 def _as_complex(z) -> np.ndarray:
@@ -153,6 +166,10 @@ def iq_health(z) -> IqHealth:
         pi = float(np.mean(i0 * i0))
         pq = float(np.mean(q0 * q0))
         c = float(np.mean(i0 * q0))
+    return _health_from_moments(dci, dcq, pi, pq, c, int(a.size))
+
+
+def _health_from_moments(dci, dcq, pi, pq, c, n) -> IqHealth:
     if pi <= 0.0 or pq <= 0.0:
         raise ValueError("one arm of z carries no signal (zero variance)")
     g = math.sqrt(pq / pi)
@@ -166,8 +183,68 @@ def iq_health(z) -> IqHealth:
         gain_imbalance_db=gdb,
         phase_imbalance_deg=pdeg,
         image_rejection_db=image_rejection_db(gdb, pdeg),
-        n_samples=int(a.size),
+        n_samples=n,
+        var_i=pi,
+        var_q=pq,
+        cov_iq=c,
     )
+
+
+class IqStatistics:
+    """`iq_health` of a whole stream from the gates' figures, pooled in constant memory.
+
+    The gates' means and central second moments are combined exactly (the pairwise
+    update of Chan, Golub and LeVeque), so the result is `iq_health` of all the samples
+    at once, to rounding; `merge` joins the statistics of a later part of the stream.
+
+    References
+    ----------
+    T. F. Chan, G. H. Golub, R. J. LeVeque, "Updating formulae and a pairwise algorithm
+    for computing sample variances", Stanford CS report STAN-CS-79-773, 1979 [memory].
+    """
+
+    def __init__(self) -> None:
+        self.n = 0
+        self._mean = np.zeros(2)
+        self._m2 = np.zeros(3)  # sums of I'^2, Q'^2, I'Q' about the running means
+
+    def add(self, h: IqHealth) -> None:
+        """Add one gate's figures (from `iq_health`)."""
+        self._combine(
+            h.n_samples,
+            np.array([h.dc_i, h.dc_q]),
+            h.n_samples * np.array([h.var_i, h.var_q, h.cov_iq]),
+        )
+
+    def merge(self, other: IqStatistics) -> None:
+        """Add the statistics of another stretch of the same stream."""
+        if other.n:
+            self._combine(other.n, other._mean.copy(), other._m2.copy())
+
+    def _combine(self, nb: int, mean_b: np.ndarray, m2_b: np.ndarray) -> None:
+        na = self.n
+        if na == 0:
+            self.n, self._mean, self._m2 = nb, mean_b, m2_b
+            return
+        n = na + nb
+        d = mean_b - self._mean
+        f = na * nb / n
+        self._m2 = self._m2 + m2_b + f * np.array([d[0] * d[0], d[1] * d[1], d[0] * d[1]])
+        self._mean = self._mean + d * (nb / n)
+        self.n = n
+
+    def result(self) -> IqHealth:
+        """The pooled figures.
+
+        Raises
+        ------
+        ValueError
+            Without samples, or when an arm carries no signal.
+        """
+        if not self.n:
+            raise ValueError("no gates (0 samples)")
+        pi, pq, c = (float(v) / self.n for v in self._m2)
+        return _health_from_moments(float(self._mean[0]), float(self._mean[1]), pi, pq, c, self.n)
 
 
 def iq_correct(z, health: IqHealth) -> np.ndarray:

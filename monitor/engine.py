@@ -17,7 +17,6 @@ import numpy as np
 from dsp import quality as dq
 from dsp import tone as dt
 from monitor.blocks import Block, StreamMeta
-from monitor.engine_tables import GateTable as _GateTable
 
 GATE_MIN_S = 0.1
 GATE_MAX_S = 100.0
@@ -732,11 +731,6 @@ class Engine:
         self._fill = 0
         return out
 
-    def record_nbytes(self) -> int:
-        """Bytes of per-gate records kept for the whole-stream summary: none in audio
-        mode (running sums); the FM modes keep a table of a few tens of bytes a gate."""
-        return sum(t.nbytes for t in vars(self.processor).values() if isinstance(t, _GateTable))
-
     def drop_buffer(self) -> None:
         """Free the gate buffer (an engine that has finished and is sent elsewhere)."""
         self._buf = self._buf[:0]
@@ -749,12 +743,14 @@ class Engine:
     def absorb(self, later: Engine) -> None:
         """Join the engine that measured the part of the stream right after this one's
         (both started on a gate boundary): readings, counts, warnings and summaries
-        become those of one engine that measured both parts. Audio mode only."""
+        become those of one engine that measured both parts."""
         absorb = getattr(self.processor, "absorb", None)
         if absorb is None:
             raise ValueError(f"{self.meta.mode} mode readings cannot be joined from parts")
+        carry = getattr(self.processor, "later_readings", None)
+        readings = later.readings if carry is None else carry(later.readings)
         absorb(later.processor)
-        self.readings.extend(later.readings)
+        self.readings.extend(readings)
         self.gates += later.gates
         self.frames += later.frames
         self.warnings.extend(w for w in later.warnings if w not in self.warnings)

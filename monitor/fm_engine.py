@@ -21,7 +21,6 @@ from dsp import quality as dq
 from dsp import spectrum as dspec
 from dsp import tone as dt
 from monitor.blocks import StreamMeta
-from monitor.engine_tables import GateTable as _GateTable
 from monitor.errors import InputError
 
 POST_FILTERS = ("none", "300-3000", "20-15k")
@@ -53,6 +52,12 @@ SPECTRUM_FULL_GATES = 8
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
 CNR_MIN_DB = 3.0
+# The summary's carrier-to-noise ratio is the median over gates, to this resolution (dB).
+CNR_MEDIAN_STEP_DB = 0.01
+# A part of a recording analysed on its own (monitor.parallel) runs its post-demodulation
+# filters over this many times their settling time before the gate ahead of it: their
+# state then agrees with one pass's to rounding (e^-32 of the start-up transient).
+PART_SETTLE_FACTOR = 4.0
 
 
 @dataclass(frozen=True)
@@ -142,12 +147,6 @@ class IqSummary:
     phase_imbalance_deg: float
     image_rejection_db: float
     corrected: bool
-
-
-@dataclass
-class _Carrier:
-    nco_hz: float  # where the demodulator mixes
-    bandwidth_hz: float
 
 
 def rf_from_carrier(meta: StreamMeta, carrier_hz: float) -> float | None:
@@ -247,8 +246,60 @@ def power_fraction_within(x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, 
     return float(p[sel].sum()) / total
 
 
+@dataclass(frozen=True)
+class FmSetup:
+    """What the first gate decides for the whole stream: where the demodulator mixes, its
+    IF bandwidth and the post-demodulation filter (handed to the workers of an analysis
+    in parts, so they demodulate exactly as one pass does)."""
+
+    carrier_hz: float
+    bandwidth_hz: float
+    post_filter: str
+    notes: tuple[str, ...] = ()
+
+
+class _MedianBins:
+    """Median of a stream of values to a set resolution, in bounded memory: counts in
+    bins of `step` (the values are per-gate carrier-to-noise ratios in dB)."""
+
+    def __init__(self, step: float):
+        self.step = step
+        self.counts: dict[int, int] = {}
+        self.n = 0
+
+    def add(self, value: float) -> None:
+        if math.isfinite(value):
+            i = math.floor(value / self.step)
+            self.counts[i] = self.counts.get(i, 0) + 1
+            self.n += 1
+
+    def merge(self, other: _MedianBins) -> None:
+        for i, c in other.counts.items():
+            self.counts[i] = self.counts.get(i, 0) + c
+        self.n += other.n
+
+    def median(self) -> float | None:
+        """The middle value's bin centre (None when empty)."""
+        if not self.n:
+            return None
+        half = 0.5 * self.n
+        seen = 0
+        for i in sorted(self.counts):
+            seen += self.counts[i]
+            if seen >= half:
+                return (i + 0.5) * self.step
+        return None  # pragma: no cover - the loop always returns
+
+
 class FmProcessor:
-    """`beat` and `iq` modes of the engine (see the module docstring)."""
+    """`beat` and `iq` modes of the engine (see the module docstring).
+
+    Everything kept for the summary is a running sum or a bounded histogram (the
+    carrier's phase-coherent join, deviation statistics and percentiles, BS.412 windows,
+    the averaged spectrum, the demodulated audio's quality, I/Q statistics), so memory
+    stays flat over day-long sessions and the figures of parts of a recording measured
+    apart join into those of one pass (`prepare_part`, `absorb`; monitor.parallel).
+    """
 
     def __init__(self, meta: StreamMeta, settings):
         self.meta = meta
@@ -257,15 +308,13 @@ class FmProcessor:
         self.kind = "complex" if meta.mode == "iq" else "real"
         self.fs = meta.fs_hz
         self.k = meta.clock_factor
-        self._carrier: _Carrier | None = None
+        self.setup: FmSetup | None = None
         self._demod: dfm.FmDemodulator | None = None
         self._post_sos = None
         self._post_zi = None
         self.post_filter = "none"
-        # per-gate figures in compact tables and running sums, so that memory stays small
-        # over day-long sessions: (t_ref, offset, sigma_f, phase, sigma_phase,
-        # contiguous, cnr) per gate
-        self._gates = _GateTable(7)
+        self._join = dt.GateJoin()  # the carrier, gate by gate (offsets from the mixer)
+        self._cnr = _MedianBins(CNR_MEDIAN_STEP_DB)
         self._dev_n = 0
         self._dev_ms_n = 0.0
         self._dev_peak_pos = -math.inf
@@ -277,8 +326,9 @@ class FmProcessor:
         self._gate_index = 0  # gates processed (the quality schedule follows it)
         from monitor.engine import QualitySchedule
 
-        self._schedule = QualitySchedule("auto")
+        self._schedule = QualitySchedule("none")
         self._last_tone: dt.ToneEstimate | None = None
+        self._last_tone_gate = -1  # gate index of _last_tone
         self._tone_w = 0.0  # sum of 1/sigma^2 of the tone frequencies
         self._tone_wf = 0.0
         self._tone_amp_sum = 0.0
@@ -288,18 +338,20 @@ class FmProcessor:
         self._last_offset_hz = 0.0
         self._last_dev = np.zeros(0)
         self._run_t0 = 0.0
-        self._z_count = 0
         self._settle = 0
         self._summary_cache = None
-        self._iq = _GateTable(5)  # dc_i, dc_q, gain dB, phase deg, image rejection dB
+        self._iq = None if self.kind == "real" else _iq_statistics()
         self._levels = _levels()
         self.no_tone_gates = 0
-        self._notes: list[str] = []
-        self._restarted = False
+        self._restarts = 0  # demodulator runs begun after the first (gaps in the input)
+        self._warm_tone: dt.ToneEstimate | None = None  # a part's tone before its start
+        self._part_origin: int | None = None  # gate index a part starts at
 
     # -- set-up ------------------------------------------------------------------------
-    def _start(self, x: np.ndarray) -> None:
+    def _acquire(self, x: np.ndarray) -> FmSetup:
+        """Find the carrier in the first gate and choose the IF bandwidth and filter."""
         fms = self.fms
+        notes: list[str] = []
         centroid, width, _ = find_carrier(x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz)
         if fms.if_bandwidth_hz is not None:
             bw = fms.if_bandwidth_hz
@@ -328,7 +380,7 @@ class FmProcessor:
                 "widen --if-bandwidth (deviation would read low)"
             )
         if inside < 0.99:
-            self._notes.append(
+            notes.append(
                 f"the IF bandwidth {bw:.0f} Hz holds {100 * inside:.1f}% of the signal's power"
             )
         post = fms.post_filter
@@ -344,23 +396,32 @@ class FmProcessor:
                 f"--post-filter {post} needs a sample rate of at least {need:g} Hz "
                 f"(the recording has {self.fs:g} Hz)"
             )
+        return FmSetup(centroid, bw, post, tuple(notes))
+
+    def configure(self, setup: FmSetup, *, start_frame: int = 0) -> None:
+        """Build the demodulator and the filters for `setup`; `start_frame` > 0 makes
+        this processor the one for the part of the stream from that frame on (its BS.412
+        windows then continue the stream's clock)."""
+        post = setup.post_filter
         try:
             self._demod = dfm.FmDemodulator(
                 self.fs,
-                centroid,
-                bw,
+                setup.carrier_hz,
+                setup.bandwidth_hz,
                 kind=self.kind,
-                min_fs_out_hz=need,
+                min_fs_out_hz=POST_MIN_RATE.get(post),
                 oversample=IF_OVERSAMPLE,
-                droop_band_hz=POST_UPPER_HZ.get(post, bw / 2.0),
+                droop_band_hz=POST_UPPER_HZ.get(post, setup.bandwidth_hz / 2.0),
             )
         except ValueError as exc:
             raise InputError(f"{self.meta.source}: cannot demodulate here: {exc}") from None
-        self._carrier = _Carrier(centroid, bw)
+        self.setup = setup
         fs_out = self._demod.fs_out_hz
         self.post_filter = post
-        self._post_sos = self._post_chain(post, fms.deemphasis, fs_out)
-        self._power = dfm.ModulationPowerMeter(fs_out)
+        self._post_sos = self._post_chain(post, self.fms.deemphasis, fs_out)
+        self._power = dfm.ModulationPowerMeter(
+            fs_out, start_index=self._demod.outputs_for(start_frame)
+        )
         nfft = 1 << max(8, min(14, int(math.log2(max(256, fs_out / 4.0)))))
         self._spec = dspec.SpectrumAverager(fs_out, nfft, kind="complex", overlap=0.0)
 
@@ -377,33 +438,34 @@ class FmProcessor:
             parts.append(filters.emphasis_sos(tau, fs_out))
         return np.vstack(parts) if parts else None
 
+    def settle_s(self) -> float:
+        """How long the post-demodulation filters take to settle (seconds)."""
+        tau = DEEMPHASIS[self.fms.deemphasis] or 0.0
+        return SETTLE_S[self.post_filter] + 8 * tau
+
     # -- per gate ----------------------------------------------------------------------
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool):
         from monitor.engine import Reading, quality_fields
 
-        full = self._schedule.next_gate(self._gate_index)
+        gate_index = self._gate_index
+        full = self._schedule.next_gate(gate_index)
         self._gate_index += 1
         lvl = self._levels.add(x)
         if self._demod is None:
-            self._start(x)
+            self.configure(self._acquire(x))
             self._restart_run(t_s)
         elif not contiguous:
             self._demod.reset()
             self._restart_run(t_s)
+            self._restarts += 1
         if self.kind == "complex":
             health = _iq_health(x)
-            self._iq.append(
-                health.dc_i,
-                health.dc_q,
-                health.gain_imbalance_db,
-                health.phase_imbalance_deg,
-                health.image_rejection_db,
-            )
+            self._iq.add(health)
             if self.fms.iq_correct:
                 x = _iq_correct(x, health)
-        block = self._demod.process_block(x)
-        inst = block.inst_hz
         demod = self._demod
+        block = demod.process_block(x)
+        inst = block.inst_hz
         nz = block.n_baseband
         if nz < 32:
             self.no_tone_gates += 1
@@ -414,26 +476,26 @@ class FmProcessor:
             )  # fmt: skip
         fs_out = demod.fs_out_hz
         line = dfm.phase_line(block)
-        offset, phase, t_c = line.offset_hz, line.phase_rad, line.t_center_s
-        s_f, s_p, cnr = line.sigma_offset_hz, line.sigma_phase_rad, line.cnr
-        cnr_db = 10 * math.log10(cnr) if cnr > 0 else -math.inf
-        carrier = self._carrier.nco_hz + offset
-        # Baseband samples of one demodulator run are consecutive, so their count fixes
-        # each gate's time up to a constant, which is all the phase join needs; the join
-        # follows the baseband phase, i.e. the offset from the mixer.
-        t_ref = self._run_t0 + self._z_count / fs_out + t_c
-        self._z_count += nz
-        self._gates.append(t_ref, offset, s_f, phase, s_p, float(contiguous and not overflow), cnr)
-        self._spectrum_update(block, self._gate_index - 1)
+        offset, s_f = line.offset_hz, line.sigma_offset_hz
+        cnr_db = 10 * math.log10(line.cnr) if line.cnr > 0 else -math.inf
+        carrier = self.setup.carrier_hz + offset
+        # The baseband samples of one demodulator run are consecutive, so their index
+        # fixes each gate's time up to a constant, which is all the phase join needs; the
+        # join follows the baseband phase, i.e. the offset from the mixer.
+        t_ref = self._run_t0 + block.start_index / fs_out + line.t_center_s
+        self._join.add(
+            t_ref,
+            offset,
+            s_f,
+            line.phase_rad,
+            line.sigma_phase_rad,
+            contiguous and not overflow,
+        )
+        self._cnr.add(cnr_db)
+        self._spectrum_update(block, gate_index)
         self._last_baseband = block
         self._last_offset_hz = offset
-        dev = inst - offset
-        dev_f = self._post(dev)
-        if self._settle:
-            cut = min(self._settle, dev_f.shape[0] // 2)
-            dev_f = dev_f[cut:]
-            self._settle -= cut
-            self._power.skip(cut)
+        dev_f = self._deviation(inst - offset)
         self._last_dev = dev_f
         # the discriminator's output is finite by construction (so is the filter's)
         figs = dfm.deviation_figures(dev_f, check_finite=False)
@@ -444,49 +506,33 @@ class FmProcessor:
         self._hist.update(dev_f, check_finite=False)
         self._power.update(dev_f, check_finite=False)
         self._hold = max(self._hold, figs.peak_pos_hz, -figs.peak_neg_hz)
-        tone = None
-        qual = None
+        tone = qual = None
+        tone_amp = 0.0
         if cnr_db >= CNR_MIN_DB and dev_f.shape[0] >= 64:
-            try:
-                tone = None
-                if self._last_tone is not None:  # track it; search afresh if it was lost
-                    prev = self._last_tone
-                    tone = dt.estimate_tone(
-                        dev_f, fs_out, start_hz=prev.frequency_hz, check_finite=False
-                    )
-                    if abs(tone.frequency_hz - prev.frequency_hz) > fs_out / dev_f.shape[0]:
-                        tone = None
-                if tone is None:
-                    tone = dt.estimate_tone(dev_f, fs_out, check_finite=False)
-            except ValueError:
-                tone = None
-            if tone is not None and tone.gate_snr_db >= 20.0 and tone.amplitude > 0.5:
-                self._last_tone = tone
-                w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
-                self._tone_w += w
-                self._tone_wf += w * tone.frequency_hz
-                # the tone's deviation without the discriminator's residual droop
-                tone_amp = tone.amplitude / float(demod.droop_response(tone.frequency_hz))
-                self._tone_amp_sum += tone_amp
-                self._tone_n += 1
-                if 0 < tone.frequency_hz < fs_out / 2:
-                    # the spur search (the dearest part) on a sample of gates, as in
-                    # audio mode (engine.QualitySchedule)
-                    # no hum fit: hum on the modulation is noise here (SNR counts it
-                    # so either way), and its own figure is not reported
-                    qual = dq.measure_quality(
-                        dev_f, fs_out, fundamental_hz=tone.frequency_hz, sfdr=full, mains=None
-                    )
-                    self._schedule.measured(qual, full)
-                    self._quality.add(qual)
-            else:
-                tone = None
-        if tone is None:
+            tone = self._tone(dev_f, fs_out, self._last_tone)
+        if tone is not None:
+            self._last_tone, self._last_tone_gate = tone, gate_index
+            w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
+            self._tone_w += w
+            self._tone_wf += w * tone.frequency_hz
+            # the tone's deviation without the discriminator's residual droop
+            tone_amp = tone.amplitude / float(demod.droop_response(tone.frequency_hz))
+            self._tone_amp_sum += tone_amp
+            self._tone_n += 1
+            if 0 < tone.frequency_hz < fs_out / 2:
+                # the spur search (the dearest part) on a sample of gates, as in audio
+                # mode (engine.QualitySchedule); no hum fit: hum on the modulation is
+                # noise here (SNR counts it so either way) and has no figure of its own
+                qual = dq.measure_quality(
+                    dev_f, fs_out, fundamental_hz=tone.frequency_hz, sfdr=full, mains=None
+                )
+                self._schedule.measured(qual, full)
+                self._quality.add(qual)
+        else:
             self.no_tone_gates += 1
         k = self.k
         rf = rf_from_carrier(self.meta, carrier * k)
         n_h = max(1, self.meta.harmonic)
-        mod_index = tone_amp / tone.frequency_hz if tone is not None else None
         return Reading(
             t_s=t_s,
             gate_s=x.shape[0] / self.fs,
@@ -505,12 +551,43 @@ class FmProcessor:
             deviation_rms_hz=figs.rms_hz * k,
             deviation_hold_hz=self._hold * k,
             mod_tone_hz=None if tone is None else tone.frequency_hz * k,
-            mod_index=mod_index,
+            mod_index=None if tone is None else tone_amp / tone.frequency_hz,
             cnr_db=cnr_db,
             contiguous=contiguous,
             overflow=overflow,
             **lvl,
         )
+
+    def _deviation(self, dev: np.ndarray) -> np.ndarray:
+        """Post-filter the deviation; drop what a (re)started filter gives while it
+        settles (the BS.412 clock moves over it)."""
+        dev_f = self._post(dev)
+        if self._settle:
+            cut = min(self._settle, dev_f.shape[0] // 2)
+            dev_f = dev_f[cut:]
+            self._settle -= cut
+            self._power.skip(cut)
+        return dev_f
+
+    @staticmethod
+    def _tone(dev_f: np.ndarray, fs_out: float, prev) -> dt.ToneEstimate | None:
+        """The modulating tone: followed from the last gate's, searched afresh when it
+        was lost; None below 20 dB of gate SNR or 0.5 Hz of deviation."""
+        try:
+            tone = None
+            if prev is not None:
+                tone = dt.estimate_tone(
+                    dev_f, fs_out, start_hz=prev.frequency_hz, check_finite=False
+                )
+                if abs(tone.frequency_hz - prev.frequency_hz) > fs_out / dev_f.shape[0]:
+                    tone = None
+            if tone is None:
+                tone = dt.estimate_tone(dev_f, fs_out, check_finite=False)
+        except ValueError:
+            return None
+        if tone.gate_snr_db >= 20.0 and tone.amplitude > 0.5:
+            return tone
+        return None
 
     def _spectrum_update(self, block: dfm.DemodBlock, gate_index: int) -> None:
         """A share of each gate for the averaged spectrum (see SPECTRUM_FULL_GATES)."""
@@ -528,10 +605,8 @@ class FmProcessor:
     def _restart_run(self, t_s: float) -> None:
         """A new demodulator run: forget filter state, let the filters settle again."""
         self._post_zi = None
-        self._run_t0, self._z_count = t_s, 0
-        fs_out = self._demod.fs_out_hz
-        tau = DEEMPHASIS[self.fms.deemphasis] or 0.0
-        self._settle = int(math.ceil((SETTLE_S[self.post_filter] + 8 * tau) * fs_out))
+        self._run_t0 = t_s
+        self._settle = int(math.ceil(self.settle_s() * self._demod.fs_out_hz))
 
     def _post(self, dev: np.ndarray) -> np.ndarray:
         if self._post_sos is None:
@@ -543,6 +618,111 @@ class FmProcessor:
         y, self._post_zi = sosfilt(self._post_sos, dev, zi=self._post_zi)
         return y
 
+    # -- a part of a stream (monitor.parallel) -------------------------------------------
+    def first_setup(self, x: np.ndarray) -> FmSetup:
+        """The set-up one pass chooses from its first gate `x`."""
+        return self._acquire(x)
+
+    def prepare_part(self, source, start: int, gate_n: int, gate_index: int, setup) -> None:
+        """Make this processor the one for the part of `source` that starts at frame
+        `start` (gate `gate_index`, a multiple of the quality schedule's period), in a
+        stream whose first gate chose `setup`.
+
+        The demodulator and the post-demodulation filters are run over what comes
+        before the part (the gate before it and long enough before that for the
+        filters to settle to rounding), so the part's figures are those of one pass; the
+        modulating tone of the gate before the part is measured afresh (`warm_tone`),
+        for the caller to compare with the tone one pass follows there (`joins`).
+        """
+        from monitor.engine import SFDR_EVERY_GATES
+
+        if gate_index % SFDR_EVERY_GATES:
+            raise ValueError(f"gate_index={gate_index} must be a multiple of {SFDR_EVERY_GATES}")
+        self._gate_index = self._part_origin = gate_index
+        self.configure(setup, start_frame=start)
+        demod = self._demod
+        lead = demod.settle_inputs + int(math.ceil(PART_SETTLE_FACTOR * self.settle_s() * self.fs))
+        gate_start = max(0, start - gate_n)
+        pre = max(0, gate_start - lead)
+        demod.seek(pre)
+        last = None
+        # the stretch before the gate settles the filters; the gate before the part is
+        # demodulated whole, as one pass does, so its offset and figures are one pass's
+        for a, b in ((pre, gate_start), (gate_start, start)):
+            if b <= a:
+                continue
+            x = np.concatenate([blk.samples for blk in source.blocks_between(a, b)])
+            if self.kind == "complex" and self.fms.iq_correct:
+                x = _iq_correct(x, _iq_health(x))
+            blk = demod.process_block(x)
+            offset = dfm.phase_line(blk).offset_hz if blk.n_baseband >= 2 else 0.0
+            last = self._post(blk.inst_hz - offset)
+        self._run_t0 = 0.0
+        self._settle = 0
+        self._warm_tone = None
+        if last is not None and last.shape[0] >= 64:
+            self._warm_tone = self._tone(last, demod.fs_out_hz, None)
+        self._last_tone = self._warm_tone
+        self._last_tone_gate = gate_index - 1 if self._warm_tone is not None else -1
+
+    def joins(self, later: FmProcessor) -> bool:
+        """Whether `later` (prepared with `prepare_part`) continues this processor as
+        one pass would: the same demodulator run, and the same modulating tone followed
+        into its first gate."""
+        if later._part_origin != self._gate_index or self._restarts or later._restarts:
+            return False
+        mine = self._last_tone if self._last_tone_gate == self._gate_index - 1 else None
+        theirs = later._warm_tone
+        if self._last_tone is not None and mine is None:
+            return False  # one pass follows an older tone there; a fresh search may differ
+        if mine is None or theirs is None:
+            return mine is None and theirs is None
+        n = self._last_dev.shape[0] or 1
+        bin_hz = self._demod.fs_out_hz / n
+        return abs(mine.frequency_hz - theirs.frequency_hz) <= 1e-3 * bin_hz
+
+    def later_readings(self, readings: list) -> list:
+        """The readings of the part after this one's, with the peak hold carried over."""
+        hold = self._hold * self.k
+        return [
+            replace(r, deviation_hold_hz=hold)
+            if r.deviation_hold_hz is not None and r.deviation_hold_hz < hold
+            else r
+            for r in readings
+        ]
+
+    def absorb(self, later: FmProcessor) -> None:
+        """Append the gates of `later` (see `joins`): afterwards the summaries are those
+        of one processor that measured both parts."""
+        self._join.merge(later._join)
+        self._cnr.merge(later._cnr)
+        self._dev_n += later._dev_n
+        self._dev_ms_n += later._dev_ms_n
+        self._dev_peak_pos = max(self._dev_peak_pos, later._dev_peak_pos)
+        self._dev_peak_neg = min(self._dev_peak_neg, later._dev_peak_neg)
+        self._hist.merge(later._hist)
+        self._power.merge(later._power)
+        self._spec.merge(later._spec)
+        self._quality.merge(later._quality)
+        self._levels.merge(later._levels)
+        if self._iq is not None:
+            self._iq.merge(later._iq)
+        self._tone_w += later._tone_w
+        self._tone_wf += later._tone_wf
+        self._tone_amp_sum += later._tone_amp_sum
+        self._tone_n += later._tone_n
+        self._hold = max(self._hold, later._hold)
+        self.no_tone_gates += later.no_tone_gates
+        self._restarts += later._restarts
+        if later._last_tone is not None:
+            self._last_tone, self._last_tone_gate = later._last_tone, later._last_tone_gate
+        for name in (
+            "_gate_index", "_schedule", "_demod", "_post_zi", "_settle", "_run_t0",
+            "_last_baseband", "_last_offset_hz", "_last_dev",
+        ):  # fmt: skip
+            setattr(self, name, getattr(later, name))
+        self._summary_cache = None
+
     # -- views -------------------------------------------------------------------------
     def view(self, x: np.ndarray, r):
         from monitor.engine import GateView, spectrum_view, waveform_view
@@ -550,7 +730,7 @@ class FmProcessor:
         if self._last_baseband is not None and self._demod is not None:
             fs_out = self._demod.fs_out_hz
             freqs, db = spectrum_view(self._last_baseband.baseband(), fs_out)
-            base = self._carrier.nco_hz
+            base = self.setup.carrier_hz
             freqs = freqs + base
             markers: tuple[float, ...] = (base + self._last_offset_hz,)
             if r.mod_tone_hz:
@@ -569,27 +749,19 @@ class FmProcessor:
     def tone_summary(self):
         from monitor.engine import ToneSummary
 
-        if not len(self._gates):
+        if not self._join.k:
             return ToneSummary(None, None, None, None, None, 0, None)
-        comb = self._combine()
-        drift = None
-        if len(self._gates) >= 3:
-            t, f = self._gates.columns()[:2]
-            f = f * self.k
-            drift = float(np.polyfit(t, f, 1)[0])
+        comb = self._join.result()
+        slope = self._join.drift_hz_per_s
         return ToneSummary(
-            frequency_hz=(self._carrier.nco_hz + comb.frequency_hz) * self.k,
+            frequency_hz=(self.setup.carrier_hz + comb.frequency_hz) * self.k,
             uncertainty_hz=comb.uncertainty_hz * self.k,
             amplitude_dbfs=self._levels.carrier_dbfs(),
             method=comb.method,
             birge_ratio=comb.birge_ratio,
             n_gates=comb.n_gates,
-            drift_hz_per_s=drift,
+            drift_hz_per_s=None if slope is None else float(slope * self.k),
         )
-
-    def _combine(self) -> dt.GateCombination:
-        t, f, sf, ph, sp, cont, _ = self._gates.columns()
-        return dt.combine_gates(t, f, sf, ph, sp, contiguous=cont.astype(bool))
 
     def quality_summary(self):
         from monitor.engine import quality_summary
@@ -604,7 +776,7 @@ class FmProcessor:
         )
 
     def fm_summary(self) -> FmSummary | None:
-        key = len(self._gates)
+        key = self._join.k
         if self._summary_cache is not None and self._summary_cache[0] == key:
             return self._summary_cache[1]
         s = self._fm_summary()
@@ -612,11 +784,11 @@ class FmProcessor:
         return s
 
     def _fm_summary(self) -> FmSummary | None:
-        if not len(self._gates) or not self._dev_n:
+        if not self._join.k or not self._dev_n:
             return None
         k = self.k
-        comb = self._combine()
-        carrier = (self._carrier.nco_hz + comb.frequency_hz) * k
+        comb = self._join.result()
+        carrier = (self.setup.carrier_hz + comb.frequency_hz) * k
         carrier_u = comb.uncertainty_hz * k
         meta = self.meta
         rf = rf_from_carrier(meta, carrier)
@@ -652,14 +824,15 @@ class FmProcessor:
         obw = obw_lo = obw_hi = bw26 = None
         if spec is not None:
             lo, hi, bw = dspec.occupied_bandwidth_hz(spec, 0.99)
-            obw, obw_lo, obw_hi = bw * k, lo + self._carrier.nco_hz, hi + self._carrier.nco_hz
+            base = self.setup.carrier_hz
+            obw, obw_lo, obw_hi = bw * k, lo + base, hi + base
             bw26 = dspec.xdb_bandwidth_hz(spec, 26.0)[2] * k
         bessel = None
         if tone_hz is not None and self._last_baseband is not None:
             bessel = self._bessel(tone_hz / k)
         mp = self._power.result()
         quality = self.quality_summary()
-        cnr = float(np.median(self._gates.columns()[6])) if len(self._gates) else None
+        cnr_db = self._cnr.median()
         return FmSummary(
             carrier_hz=carrier,
             carrier_uncertainty_hz=carrier_u,
@@ -671,7 +844,7 @@ class FmProcessor:
             dial_hz=meta.dial_hz if meta.mode == "beat" else (meta.center_hz or meta.dial_hz),
             sideband=meta.sideband if meta.mode == "beat" else None,
             harmonic=n_h,
-            if_bandwidth_hz=self._carrier.bandwidth_hz,
+            if_bandwidth_hz=self.setup.bandwidth_hz,
             post_filter=self.post_filter,
             deemphasis=self.fms.deemphasis,
             deviation=dev,
@@ -688,7 +861,7 @@ class FmProcessor:
             mod_power_dbr=mp.power_dbr,
             mod_power_window_s=mp.window_s,
             mod_power_whole_record=mp.whole_record,
-            cnr_db=None if cnr is None else 10 * math.log10(cnr),
+            cnr_db=cnr_db,
             demod_snr_db=quality.snr_db,
             demod_sinad_db=quality.sinad_db,
             demod_thd_percent=quality.thd_percent,
@@ -723,20 +896,23 @@ class FmProcessor:
         )
 
     def iq_summary(self) -> IqSummary | None:
-        if not len(self._iq):
+        if self._iq is None or not self._iq.n:
             return None
-        dc_i, dc_q, gain, phase, image = self._iq.columns()
+        try:
+            h = self._iq.result()
+        except ValueError:
+            return None
         return IqSummary(
-            dc_i=float(np.mean(dc_i)),
-            dc_q=float(np.mean(dc_q)),
-            gain_imbalance_db=float(np.median(gain)),
-            phase_imbalance_deg=float(np.median(phase)),
-            image_rejection_db=float(np.median(image)),
+            dc_i=h.dc_i,
+            dc_q=h.dc_q,
+            gain_imbalance_db=h.gain_imbalance_db,
+            phase_imbalance_deg=h.phase_imbalance_deg,
+            image_rejection_db=h.image_rejection_db,
             corrected=self.fms.iq_correct,
         )
 
     def summary_warnings(self) -> list[str]:
-        out = list(self._notes)
+        out = list(self.setup.notes) if self.setup is not None else []
         s = self.fm_summary()
         if s is None:
             return out
@@ -808,6 +984,11 @@ class _levels:
             "clipped_samples": lvl.clipped_samples,
         }
 
+    def merge(self, other: _levels) -> None:
+        self.acc.merge(other.acc)
+        self.sum_abs2 += other.sum_abs2
+        self.n += other.n
+
     def summary(self):
         return self.acc.summary()
 
@@ -822,6 +1003,12 @@ def _iq_health(z):
     return iq.iq_health(z)
 
 
+def _iq_statistics():
+    from dsp import iq
+
+    return iq.IqStatistics()
+
+
 def _iq_correct(z, health):
     from dsp import iq
 
@@ -834,4 +1021,12 @@ def make_processor(meta: StreamMeta, settings) -> FmProcessor:
     return FmProcessor(meta, settings)
 
 
-__all__ = ["FmProcessor", "FmSettings", "FmSummary", "IqSummary", "find_carrier", "make_processor"]
+__all__ = [
+    "FmProcessor",
+    "FmSettings",
+    "FmSetup",
+    "FmSummary",
+    "IqSummary",
+    "find_carrier",
+    "make_processor",
+]
