@@ -455,6 +455,14 @@ class FmDemodulator:
             h = h * (np.cos(_TWO_PI * np.multiply.outer(x, k)) @ self._eq)
         return h
 
+    def __getstate__(self) -> dict:
+        # the FFT workspaces and scratch buffers are caches, remade on use: a pickled
+        # demodulator (one handed between processes) carries its state, not them
+        state = dict(self.__dict__)
+        state["_spectra"] = {}
+        state["_bufs"] = {}
+        return state
+
     def outputs_for(self, n_input: int) -> int:
         """Output samples a fresh demodulator gives for its first n_input samples (in
         any split into calls): the output clock's reading at input sample n_input."""

@@ -56,8 +56,9 @@ CNR_MIN_DB = 3.0
 CNR_MEDIAN_STEP_DB = 0.01
 # A part of a recording analysed on its own (monitor.parallel) runs its post-demodulation
 # filters over this many times their settling time before the gate ahead of it: their
-# state then agrees with one pass's to rounding (e^-32 of the start-up transient).
-PART_SETTLE_FACTOR = 4.0
+# state then agrees with one pass's to rounding (SETTLE_S is about eight time constants
+# of the slowest pole: e^-16 of the start-up transient is left, times the gate before).
+PART_SETTLE_FACTOR = 2.0
 
 
 @dataclass(frozen=True)
@@ -181,7 +182,7 @@ def _gate_power(x: np.ndarray, fs_hz: float, kind: str):
 
 
 def find_carrier(
-    x: np.ndarray, fs_hz: float, *, kind: str, near_hz: float | None = None
+    x: np.ndarray, fs_hz: float, *, kind: str, near_hz: float | None = None, spectrum=None
 ) -> tuple[float, float, float]:
     """Coarse carrier and signal width from one gate's spectrum.
 
@@ -190,10 +191,11 @@ def find_carrier(
     neighbours whose gaps stay within 2.5 times the typical line spacing (so one nulled
     line does not split the group), keep the group holding the strongest peak (or the
     peak nearest `near_hz`), and return its power-weighted centre, its width and the SNR
-    of its strongest peak: (centre_hz, width_hz, snr_db).
+    of its strongest peak: (centre_hz, width_hz, snr_db). `spectrum` is the gate's
+    (freqs, power) from `_gate_power`, when the caller has it already.
     """
     n = x.shape[0]
-    freqs, p = _gate_power(x, fs_hz, kind)
+    freqs, p = spectrum if spectrum is not None else _gate_power(x, fs_hz, kind)
     floor = float(np.median(p)) + 1e-300
     inner = p[1:-1]
     is_peak = (inner >= p[:-2]) & (inner > p[2:])
@@ -235,9 +237,11 @@ def find_carrier(
     return centre, width, snr_db
 
 
-def power_fraction_within(x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, hi_hz: float):
+def power_fraction_within(
+    x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, hi_hz: float, *, spectrum=None
+):
     """Share of the signal's power (above the noise floor) between lo_hz and hi_hz."""
-    freqs, p = _gate_power(x, fs_hz, kind)
+    freqs, p = spectrum if spectrum is not None else _gate_power(x, fs_hz, kind)
     p = np.maximum(p - np.median(p), 0.0)  # the noise floor is not signal
     total = float(p.sum())
     if total <= 0:
@@ -344,6 +348,7 @@ class FmProcessor:
         self._levels = _levels()
         self.no_tone_gates = 0
         self._restarts = 0  # demodulator runs begun after the first (gaps in the input)
+        self._given: FmSetup | None = None  # set-up chosen elsewhere (monitor.parallel)
         self._warm_tone: dt.ToneEstimate | None = None  # a part's tone before its start
         self._part_origin: int | None = None  # gate index a part starts at
 
@@ -352,7 +357,10 @@ class FmProcessor:
         """Find the carrier in the first gate and choose the IF bandwidth and filter."""
         fms = self.fms
         notes: list[str] = []
-        centroid, width, _ = find_carrier(x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz)
+        spectrum = _gate_power(x, self.fs, self.kind)  # one transform for both questions
+        centroid, width, _ = find_carrier(
+            x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz, spectrum=spectrum
+        )
         if fms.if_bandwidth_hz is not None:
             bw = fms.if_bandwidth_hz
         else:
@@ -372,7 +380,9 @@ class FmProcessor:
                 )
         else:
             bw = min(bw, 0.8 * self.fs)
-        inside = power_fraction_within(x, self.fs, self.kind, centroid - bw / 2, centroid + bw / 2)
+        inside = power_fraction_within(
+            x, self.fs, self.kind, centroid - bw / 2, centroid + bw / 2, spectrum=spectrum
+        )
         if inside < IF_POWER_MIN_FRACTION:
             raise InputError(
                 f"{self.meta.source}: the IF bandwidth {bw:g} Hz around the carrier at "
@@ -452,7 +462,7 @@ class FmProcessor:
         self._gate_index += 1
         lvl = self._levels.add(x)
         if self._demod is None:
-            self.configure(self._acquire(x))
+            self.configure(self._given or self._acquire(x))
             self._restart_run(t_s)
         elif not contiguous:
             self._demod.reset()
@@ -622,6 +632,11 @@ class FmProcessor:
     def first_setup(self, x: np.ndarray) -> FmSetup:
         """The set-up one pass chooses from its first gate `x`."""
         return self._acquire(x)
+
+    def use_setup(self, setup: FmSetup) -> None:
+        """Take `setup` (from `first_setup` on the same first gate) instead of choosing
+        again at the first gate: the part of a stream that starts at its beginning."""
+        self._given = setup
 
     def prepare_part(self, source, start: int, gate_n: int, gate_index: int, setup) -> None:
         """Make this processor the one for the part of `source` that starts at frame

@@ -19,12 +19,24 @@ whole record are those of one engine that read the file from start to end:
   parts' tracking state): if it finds another line (a tone that faded under a stronger
   one), the part is run again in the parent, continuing the parts before it.
 
-Only integer PCM files (WAV, RF64, W64 and the other containers whose integer reads
-were checked, see `monitor.sources`) in audio mode without a deviation calibration are
-split; everything else, and recordings too short for the start-up cost to pay, takes one
-process. Workers start by `fork` on Linux (a few milliseconds) when no other thread is
-running, else from a fork server, and by `spawn` on macOS and Windows; those two take
-about a second to start, so recordings are split there only from half an hour up.
+The FM modes (beat, iq) are split the same way: the first gate chooses the carrier, the
+IF bandwidth and the filters for all parts (`FmProcessor.first_setup`); a part's
+demodulator and post-demodulation filters are run over what comes before it until they
+hold one pass's state to rounding, and its running sums (the carrier's phase join,
+deviation statistics and histogram, BS.412 windows on the output clock, the averaged
+spectrum, the quality and I/Q statistics) are joined in order. The modulating tone the
+part follows into its first gate is measured on the gate before it; when it is not the
+tone one pass follows there, the parent runs that part itself.
+
+Audio mode splits integer PCM files (WAV, RF64, W64 and the other containers whose
+integer reads were checked, see `monitor.sources`) without a deviation calibration; the
+FM modes split those and 32/64-bit float files too (a part holding NaN or inf samples
+sends the whole recording through one pass, which handles them). Everything else, and
+recordings too short for the start-up cost to pay, takes one process.
+
+Workers start by `fork` on Linux (a few milliseconds) when no other thread is running,
+else from a fork server, and by `spawn` on macOS and Windows; those two take about a
+second to start, so recordings are split there only from half an hour up.
 """
 
 from __future__ import annotations
@@ -48,6 +60,8 @@ from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine,
 PREROLL_S = 2.0
 #: fewest gates a part must hold for a split to be worth it
 MIN_PART_GATES = 60
+#: the same for the FM modes, whose gates cost several times more
+MIN_FM_PART_GATES = 24
 #: with workers started by spawn or a fork server, the shortest recording split (s)
 MIN_SPAWN_SECONDS = 1800.0
 #: most worker processes
@@ -95,8 +109,12 @@ def why_not_split(source, settings: AnalysisSettings) -> str | None:
     """Why `source` cannot be analysed in parts (None when it can)."""
     from monitor.sources import SoundFileSource
 
+    if settings.mode in ("beat", "iq"):
+        if not isinstance(source, SoundFileSource):
+            return "only WAV, RF64, W64 and other libsndfile recordings are read in parts"
+        return None
     if settings.mode != "audio":
-        return f"{settings.mode} mode keeps its demodulator state from gate to gate"
+        return f"{settings.mode} mode cannot be analysed in parts"
     if settings.deviation_hz_per_unit:
         return "audio deviation figures are kept from gate to gate"
     if not isinstance(source, SoundFileSource) or not source.integer_samples:
@@ -105,16 +123,22 @@ def why_not_split(source, settings: AnalysisSettings) -> str | None:
 
 
 def plan_parts(
-    frames: int, gate_n: int, jobs: int, *, align: int = SFDR_EVERY_GATES
+    frames: int,
+    gate_n: int,
+    jobs: int,
+    *,
+    align: int = SFDR_EVERY_GATES,
+    min_gates: int = MIN_PART_GATES,
 ) -> list[tuple[int, int]]:
     """[(start, stop)] frames of up to `jobs` parts of whole gates (the last part
-    takes the rest, partial gate included); one part when they would be too short.
+    takes the rest, partial gate included); one part when they would be shorter than
+    `min_gates`.
 
     Parts start on multiples of `align` gates: the quality meter's full gates (spur
     search, both mains families) fall every SFDR_EVERY_GATES gates, so each part starts
     on one, as the gate would in a one-pass analysis."""
     gates = frames // gate_n
-    jobs = max(1, min(jobs, gates // MIN_PART_GATES))
+    jobs = max(1, min(jobs, gates // min_gates))
     if jobs == 1:
         return [(0, frames)]
     starts = sorted({round(k * gates / jobs / align) * align * gate_n for k in range(jobs)})
@@ -135,31 +159,37 @@ def choose_jobs(jobs: int | None, source, settings: AnalysisSettings) -> int:
     return jobs
 
 
-def _part(task) -> tuple[Engine, list[tuple[str, type]]]:
-    """Worker: run one engine on frames [start, stop) of the file."""
-    path, source_kw, settings, start, stop, gate_index, sos = task
-    from monitor.sources import open_source
+def min_part_gates(settings: AnalysisSettings) -> int:
+    """Fewest gates a part of a recording analysed in `settings`' mode must hold."""
+    return MIN_FM_PART_GATES if settings.mode in ("beat", "iq") else MIN_PART_GATES
+
+
+def _part(task) -> tuple[Engine | None, list[tuple[str, type]]]:
+    """Worker: run one engine on frames [start, stop) of the file (None when the part
+    holds samples only a whole read can handle)."""
+    path, source_kw, settings, start, stop, gate_index, shared = task
+    from monitor.sources import NonFiniteSamples, open_source
 
     with warnings.catch_warnings(record=True) as said:
         warnings.simplefilter("always")
         with open_source(path, **source_kw) as src:
+            src.prefer_block_frames(_gate_n(settings, src.meta))
             engine = Engine(src.meta, settings)
             p = engine.processor
-            p.start_at(gate_index)
-            if sos is not None:
-                # the parent's design, not one of our own: a least-squares polish can
-                # land on slightly different coefficients in another process
-                p._sos = sos
-            if start > 0:
-                if p._sos is not None:
-                    pre = max(0, start - int(math.ceil(PREROLL_S * src.meta.fs_hz)))
-                    for block in src.blocks_between(pre, start):
-                        p.filtered(block.samples)
-                p.warm_up(_gate_samples(src, start - engine.gate_n, engine.gate_n))
-            engine._next = start
-            for block in src.blocks_between(start, stop):
-                engine.feed(block)
-            engine.finish()
+            try:
+                if settings.mode in ("beat", "iq"):
+                    if start > 0:
+                        p.prepare_part(src, start, engine.gate_n, gate_index, shared)
+                    else:
+                        p.use_setup(shared)
+                else:
+                    _prepare_audio_part(p, src, start, engine.gate_n, gate_index, shared)
+                engine._next = start
+                for block in src.blocks_between(start, stop):
+                    engine.feed(block)
+                engine.finish()
+            except NonFiniteSamples:
+                return None, []
     engine.drop_buffer()  # the parent needs the figures, not the last gate's samples
     # warnings are handed to the parent, which shows them (once each): a worker writes
     # nothing
@@ -167,6 +197,20 @@ def _part(task) -> tuple[Engine, list[tuple[str, type]]]:
     for w in said:
         seen.setdefault((str(w.message), w.category))
     return engine, list(seen)
+
+
+def _prepare_audio_part(p, src, start: int, gate_n: int, gate_index: int, sos) -> None:
+    p.start_at(gate_index)
+    if sos is not None:
+        # the parent's design, not one of our own: a least-squares polish can land on
+        # slightly different coefficients in another process
+        p._sos = sos
+    if start > 0:
+        if p._sos is not None:
+            pre = max(0, start - int(math.ceil(PREROLL_S * src.meta.fs_hz)))
+            for block in src.blocks_between(pre, start):
+                p.filtered(block.samples)
+        p.warm_up(_gate_samples(src, start - gate_n, gate_n))
 
 
 def _gate_samples(source, start: int, n: int):
@@ -177,8 +221,12 @@ def _joins(engine: Engine, part: Engine, source, start: int) -> bool:
     """Whether `part` (which started afresh at `start`) continues `engine` as one pass
     would: the first gate of a part searches the spectrum for the tone, where one pass
     follows the tone of the gate before. Both give the same line unless the tone moved
-    or faded (or another line is stronger); the parent checks that gate itself."""
+    or faded (or another line is stronger); the parent checks that gate itself. (The FM
+    processor answers for itself: `FmProcessor.joins`.)"""
     p = engine.processor
+    joins = getattr(p, "joins", None)
+    if joins is not None:
+        return joins(part.processor)
     if p._track_hz is None or not part.readings:
         return True  # one pass searches afresh here too
     from monitor.engine import TONE_GATE_SNR_MIN_DB
@@ -223,27 +271,48 @@ def analyze_parts(
     from concurrent.futures import ProcessPoolExecutor
     from concurrent.futures.process import BrokenProcessPool
 
+    from monitor.engine import run
+    from monitor.sources import NonFiniteSamples
+
     meta = source.meta
     gate_n = _gate_n(settings, meta)
-    parts = plan_parts(meta.frames, gate_n, jobs * PARTS_PER_JOB)
-    sos = None
-    if settings.filter != "none":
-        from dsp import filters
-
-        sos = filters.filter_sos(settings.filter, meta.fs_hz)  # the one-pass engine's
-    tasks = [(str(path), source_kw, settings, a, b, a // gate_n, sos) for a, b in parts]
-    # One gate through a throwaway engine first: the lazy imports (scipy's FFT and
-    # filters) and the per-length tables are then made once here and inherited by forked
-    # workers, instead of once in every worker.
+    parts = plan_parts(
+        meta.frames, gate_n, jobs * PARTS_PER_JOB, min_gates=min_part_gates(settings)
+    )
     warm = Engine(meta, settings, keep_readings=False)
-    warm.feed(Block(_gate_samples(source, 0, gate_n), 0, meta))
+    try:
+        first = _gate_samples(source, 0, gate_n)
+    except NonFiniteSamples:
+        return run(source, settings, progress=progress)
+    if settings.mode in ("beat", "iq"):
+        # The first gate chooses the carrier, bandwidth and filters every part uses, as
+        # one pass's first gate does; building them here makes the filter designs and
+        # lazy imports once, for the forked workers to inherit.
+        shared = warm.processor.first_setup(first)
+        warm.processor.configure(shared)
+    else:
+        # One gate through a throwaway engine: the lazy imports (scipy's FFT and
+        # filters) and the per-length tables are then made once here and inherited by
+        # forked workers, instead of once in every worker.
+        warm.feed(Block(first, 0, meta))
+        shared = None
+        if settings.filter != "none":
+            from dsp import filters
+
+            shared = filters.filter_sos(settings.filter, meta.fs_hz)  # the one-pass engine's
+    tasks = [(str(path), source_kw, settings, a, b, a // gate_n, shared) for a, b in parts]
     engine: Engine | None = None
+    whole = False
     done = 0
     try:
         with ProcessPoolExecutor(
             min(jobs, len(parts)), mp_context=_context(), initializer=_worker_init
         ) as pool:
             for (a, b), (part, said) in zip(parts, pool.map(_part, tasks), strict=True):
+                if part is None:
+                    whole = True  # NaN or inf samples: only a whole read handles them
+                    pool.shutdown(wait=False, cancel_futures=True)
+                    break
                 for text, category in said:
                     warnings.warn(text, category, stacklevel=2)
                 if engine is None:
@@ -252,19 +321,24 @@ def analyze_parts(
                 elif _joins(engine, part, source, a):
                     engine.absorb(part)
                 else:
-                    _continue(engine, source, a, b, last=b == meta.frames)
+                    try:
+                        _continue(engine, source, a, b, last=b == meta.frames)
+                    except NonFiniteSamples:
+                        whole = True
+                        pool.shutdown(wait=False, cancel_futures=True)
+                        break
                 done = b
                 if progress is not None:
                     progress(done, meta.frames)
     except BrokenProcessPool:
-        from monitor.engine import run
-
         warnings.warn(
             "a worker process died (out of memory?): the recording was analysed in one "
             "process instead",
             RuntimeWarning,
             stacklevel=2,
         )
+        return run(source, settings, progress=progress)
+    if whole:
         return run(source, settings, progress=progress)
     if engine.frames < meta.frames:
         source._warn(

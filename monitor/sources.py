@@ -124,6 +124,10 @@ _INTEGER_READS = {
 _INTEGER_CONTAINERS = frozenset({"WAV", "WAVEX", "RF64", "W64", "AIFF", "CAF", "FLAC", "AU"})
 
 
+class NonFiniteSamples(ValueError):
+    """A stretch read with `blocks_between` holds NaN, inf or absurd float samples."""
+
+
 def _all_in_range(samples: np.ndarray) -> bool:
     """Every sample finite and within MAX_ABS_SAMPLE: two reductions, no temporaries (a
     NaN anywhere makes min and max NaN, and the comparisons False)."""
@@ -333,14 +337,15 @@ class SoundFileSource(_BlockReader):
     def blocks_between(self, start: int, stop: int) -> Iterator[Block]:
         """Blocks of frames [start, stop) (stream indices as in a whole read).
 
-        For integer PCM files only (`integer_samples`), whose samples need none of the
-        NaN/Inf bookkeeping of a whole read; a part of a recording analysed on its own
-        (as `monitor.parallel` does) reads its samples here.
+        A part of a recording analysed on its own (as `monitor.parallel` does) reads its
+        samples here. They get none of the NaN/Inf bookkeeping of a whole read: a float
+        sample that is not finite or beyond MAX_ABS_SAMPLE raises `NonFiniteSamples`,
+        and the caller reads the recording whole instead.
         """
-        if not self._integer_samples:
-            raise ValueError(f"{self.path}: blocks_between needs an integer PCM file")
         pos = start
         for samples in self._raw_blocks(start, stop):
+            if not self._integer_samples and not _all_in_range(samples):
+                raise NonFiniteSamples(f"{self.path}: non-finite samples from frame {pos} on")
             yield Block(samples, pos, self.meta)
             pos += samples.shape[0]
 
