@@ -448,6 +448,15 @@ class FmDemodulator:
         """Amplitude response of the discriminator and its equaliser to a modulating
         tone: sinc(f / fs_out) times the equaliser's response (1 within 1e-4 over the
         equalised band; the tone figures can be divided by it exactly)."""
+        if np.ndim(freq_hz) == 0:  # one tone a gate: plain floats are quicker
+            x = float(freq_hz) / self.fs_out_hz
+            h = 1.0 if x == 0.0 else math.sin(math.pi * x) / (math.pi * x)
+            if self._eq is not None:
+                eq, half = self._eq, self._eq_half
+                h *= float(eq[half]) + 2.0 * sum(
+                    float(eq[half + k]) * math.cos(_TWO_PI * k * x) for k in range(1, half + 1)
+                )
+            return np.float64(h)
         x = np.asarray(freq_hz, dtype=np.float64) / self.fs_out_hz
         h = np.sinc(x)
         if self._eq is not None:

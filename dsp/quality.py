@@ -369,14 +369,16 @@ def _solve_normal(g: np.ndarray, p: np.ndarray, well_separated: bool) -> np.ndar
         b = np.zeros_like(p)
         b[keep] = _solve_normal(g[np.ix_(keep, keep)], p[keep], False)
         return b
+    if well_separated:
+        # nearly orthogonal columns of similar norms (n for DC, about n/2 for the
+        # lines): a plain solve needs no scaling
+        try:
+            return np.linalg.solve(g, p)
+        except np.linalg.LinAlgError:
+            pass
     d = np.sqrt(diag)
     gs = g / np.outer(d, d)
     ps = p / d
-    if well_separated:
-        try:
-            return np.linalg.solve(gs, ps) / d
-        except np.linalg.LinAlgError:
-            pass
     ev, vec = np.linalg.eigh(gs)
     inv = np.where(ev > 1e-10 * ev[-1], 1.0 / np.where(ev > 0, ev, 1.0), 0.0)
     return (vec @ (inv * (vec.T @ ps))) / d

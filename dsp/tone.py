@@ -346,26 +346,39 @@ def _fit_step(g: _Gate, omega: float, ab: tuple[float, float] | None):
 
 
 def _cholesky_solve(a: list[list[float]], b: list[float]) -> list[float] | None:
-    """Solve a small symmetric positive-definite system in plain floats (a 4x4 Gram
-    matrix costs more to hand to LAPACK than to solve here). None if not positive."""
-    n = len(b)
-    low = [[0.0] * n for _ in range(n)]
-    for i in range(n):
-        for j in range(i + 1):
-            acc = a[i][j] - sum(low[i][k] * low[j][k] for k in range(j))
-            if i == j:
-                if not acc > 0.0:
-                    return None
-                low[i][i] = math.sqrt(acc)
-            else:
-                low[i][j] = acc / low[j][j]
-    y = [0.0] * n
-    for i in range(n):
-        y[i] = (b[i] - sum(low[i][k] * y[k] for k in range(i))) / low[i][i]
-    x = [0.0] * n
-    for i in reversed(range(n)):
-        x[i] = (y[i] - sum(low[k][i] * x[k] for k in range(i + 1, n))) / low[i][i]
-    return x
+    """Solve a symmetric positive-definite 4x4 system in plain floats (the Gram matrix of
+    a Gauss-Newton step costs more to hand to LAPACK, or to a loop, than to solve here
+    written out). None if not positive definite."""
+    (a00, a01, a02, a03), (_, a11, a12, a13), (_, _, a22, a23), (_, _, _, a33) = a
+    if not a00 > 0.0:
+        return None
+    l00 = math.sqrt(a00)
+    l10, l20, l30 = a01 / l00, a02 / l00, a03 / l00
+    t = a11 - l10 * l10
+    if not t > 0.0:
+        return None
+    l11 = math.sqrt(t)
+    l21 = (a12 - l20 * l10) / l11
+    l31 = (a13 - l30 * l10) / l11
+    t = a22 - l20 * l20 - l21 * l21
+    if not t > 0.0:
+        return None
+    l22 = math.sqrt(t)
+    l32 = (a23 - l30 * l20 - l31 * l21) / l22
+    t = a33 - l30 * l30 - l31 * l31 - l32 * l32
+    if not t > 0.0:
+        return None
+    l33 = math.sqrt(t)
+    b0, b1, b2, b3 = b
+    y0 = b0 / l00
+    y1 = (b1 - l10 * y0) / l11
+    y2 = (b2 - l20 * y0 - l21 * y1) / l22
+    y3 = (b3 - l30 * y0 - l31 * y1 - l32 * y2) / l33
+    x3 = y3 / l33
+    x2 = (y2 - l32 * x3) / l22
+    x1 = (y1 - l21 * x2 - l31 * x3) / l11
+    x0 = (y0 - l10 * x1 - l20 * x2 - l30 * x3) / l00
+    return [x0, x1, x2, x3]
 
 
 _HANN: dict[int, np.ndarray] = {}

@@ -43,11 +43,12 @@ MIN_IF_BANDWIDTH_HZ = 200.0
 # The carrier cluster must stand this far above the spectral floor (dB) to count.
 CARRIER_MIN_SNR_DB = 15.0
 # The averaged baseband spectrum (bandwidths) takes this many segments from each of the
-# first SPECTRUM_FULL_GATES gates of a stream, then one a gate (its place moving through
-# the gate), each gate weighted alike: short records still get a smooth spectrum, long
-# ones do not pay for four.
+# first SPECTRUM_FULL_GATES gates of a stream, then one from every SPECTRUM_STRIDE-th gate
+# (its place moving through the gate), each gate sampled weighted alike: short records
+# still get a smooth spectrum, long ones do not pay for four segments a gate.
 SPECTRUM_SEGMENTS_PER_GATE = 4
 SPECTRUM_FULL_GATES = 8
+SPECTRUM_STRIDE = 2
 # An IF band holding less of the signal's power than this gives no trustworthy deviation.
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
@@ -608,8 +609,8 @@ class FmProcessor:
         if gate_index < SPECTRUM_FULL_GATES:
             k = min(have, SPECTRUM_SEGMENTS_PER_GATE)
             self._spec.update(block.baseband(0, k * nfft), weight=1.0 / k)
-        else:
-            a = (gate_index % min(have, SPECTRUM_SEGMENTS_PER_GATE)) * nfft
+        elif gate_index % SPECTRUM_STRIDE == 0:
+            a = (gate_index // SPECTRUM_STRIDE % min(have, SPECTRUM_SEGMENTS_PER_GATE)) * nfft
             self._spec.update(block.baseband(a, a + nfft))
 
     def _restart_run(self, t_s: float) -> None:
