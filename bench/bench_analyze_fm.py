@@ -164,8 +164,9 @@ def main(argv: list[str] | None = None) -> int:
                     if who == "swingmeter" and seconds == long_s:
                         tgt = f"{target:7.0f}"
                         ok &= speed >= target
-                    print(f"{name if who == 'swingmeter' else '':<12} {seconds:6.0f}s {who:<11} "
-                          f"{speed:11.0f} {tgt:>7} {e_tone:>17} {e_peak:>21}", flush=True)  # fmt: skip
+                    label = name if who == "swingmeter" else ""
+                    print(f"{label:<12} {seconds:6.0f}s {who:<11} {speed:11.0f} {tgt:>7} "
+                          f"{e_tone:>17} {e_peak:>21}", flush=True)  # fmt: skip
                 one, par = res["--jobs 1"][0], res["swingmeter"][0]
                 same = all(
                     abs(a.carrier_hz - b.carrier_hz) <= 1e-6 * max(1.0, a.carrier_uncertainty_hz)
