@@ -19,6 +19,8 @@ import scipy.signal as ssig
 import scipy.special as sspec
 from scipy.optimize import minimize_scalar
 
+from dsp import _fft
+
 __all__ = [
     "BS412_REFERENCE_DEVIATION_HZ",
     "BesselFit",
@@ -547,19 +549,25 @@ class FmDemodulator:
         n = self._fft_size(seg.size)
         g, xf, folded = self._workspace(n)
         h = n // 2 + 1
+        if seg.size < n or not seg.flags.c_contiguous:  # zero-padded, in a kept buffer
+            buf = self._scratch("seg", n, seg.dtype)
+            buf[: seg.size] = seg
+            buf[seg.size :] = 0.0
+            seg = buf
         if self.kind == "real":
-            xr = sfft.rfft(seg, n)
+            xr = _fft.rfft(seg, out=self._scratch("xr", h, np.complex128))
             np.multiply(xr, g[:h], out=xf[:h])
             np.conjugate(xr[1 : (n + 1) // 2][::-1], out=xf[h:])
             xf[h:] *= g[h:]
         else:
-            np.multiply(sfft.fft(seg, n), g, out=xf)
+            _fft.fft(seg, out=xf)
+            xf *= g
         k = n // d
         if d > 1:
             np.add.reduce(xf.reshape(d, k), axis=0, out=folded)
         else:
             folded[:] = xf
-        v = sfft.ifft(folded, overwrite_x=True)
+        v = _fft.ifft(folded, out=folded)
         p = self._pad // d
         out[:] = v[p : p + n_out]
 
