@@ -77,6 +77,14 @@ def _finite(name: str, value: float) -> float:
     return v
 
 
+def _finite_energy(x: np.ndarray) -> bool:
+    """No NaN or inf in x: one BLAS dot product instead of an isfinite pass (the dot
+    also overflows for |x| > 1e154, which no filter here could hold either)."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        e = np.vdot(x, x).real if x.dtype.kind == "c" else np.dot(x, x)
+    return bool(np.isfinite(e))
+
+
 def _as_real_1d(name: str, x) -> np.ndarray:
     a = np.asarray(x)
     if a.dtype.kind not in "biuf":
@@ -617,18 +625,9 @@ class FmDemodulator:
         """Like `process`, returning a `DemodBlock`: the instantaneous frequency, the
         discriminator's raw (unequalised) phase steps and the baseband, which it
         computes only where asked (`DemodBlock.baseband`)."""
-        v = self._advance(samples).copy()
+        v = self._advance(samples, fresh=True)
         vstart = self._vstart
-        first = self._last_v is None
-        inst, raw = self._discriminate(v, keep_raw=True)
-        # raw[i] is the step into baseband sample i (i + 1 on a run's first call)
-        step = np.empty(v.size)
-        if v.size:
-            if first:
-                step[1:] = raw
-            else:
-                step[:] = raw
-            step[0] = 0.0
+        inst, step = self._discriminate(v, keep_raw=True)
         return DemodBlock(
             inst_hz=inst,
             step_hz=step,
@@ -640,9 +639,10 @@ class FmDemodulator:
         )
 
     # ----------------------------------------------------------------------------------
-    def _advance(self, samples) -> np.ndarray:
+    def _advance(self, samples, fresh: bool = False) -> np.ndarray:
+        """Band-pass outputs of the next input (a reused buffer; a new array if fresh)."""
         x = _as_1d("samples", samples, self.kind)
-        if x.size and not np.isfinite(x).all():
+        if x.size and not _finite_energy(x):
             raise ValueError("samples must be finite (found NaN or inf)")
         d = self.decimation
         hist = self._hist
@@ -650,7 +650,11 @@ class FmDemodulator:
         m = self._m + x.size
         j1 = -(-m // d)
         total = j1 - self._j0
-        v = self._scratch("v", max(total, 0), np.complex128)
+        v = (
+            np.empty(max(total, 0), np.complex128)
+            if fresh
+            else self._scratch("v", max(total, 0), np.complex128)
+        )
         done = 0
         pos = 0  # in the virtual buffer hist ++ x
         while done < total:
@@ -678,10 +682,14 @@ class FmDemodulator:
         return v[skip:] if skip else v
 
     def _discriminate(self, v: np.ndarray, keep_raw: bool = False):
+        """Equalised instantaneous frequency of baseband v (Hz); with keep_raw also the
+        raw steps aligned with v: raw[i] = angle(v[i] conj(v[i-1])) * fs_out / 2 pi, with
+        raw[0] = 0 (not used) on a run's first call."""
         if v.size == 0:
             return (np.zeros(0), np.zeros(0)) if keep_raw else np.zeros(0)
+        first = self._last_v is None
         # p = v[n] conj(v[n-1]) e^{-jc}: c is the mixer's phase step at the output rate.
-        if self._last_v is not None:
+        if not first:
             p = self._scratch("p", v.size, np.complex128)
             p[0] = np.conj(self._last_v)
             np.conjugate(v[:-1], out=p[1:])
@@ -698,31 +706,35 @@ class FmDemodulator:
             p *= 1.0 / big
         comp = self.droop_compensation
         nt = self._tail.size if comp else 0
-        # r = previous tail ++ new raw frequencies (only the tail is kept between calls).
-        r = (
-            np.empty(p.size, dtype=np.float64)
-            if not comp
-            else self._scratch("r", nt + p.size, np.float64)
-        )
+        # One new array holds the equaliser's input, previous tail ++ new raw
+        # frequencies, laid out so that the raw part is also the steps aligned with v
+        # (one slot ahead of them on a run's first call): no copies.
+        lead = 1 if first else 0
+        buf = np.empty(nt + lead + p.size)
+        r = buf[lead:]
         r[:nt] = self._tail
         scale = np.float64(self.fs_out_hz / _TWO_PI)
         # Pieces keep the float32 temporaries small enough to be reused, not re-faulted.
         for i in range(0, p.size, 8192):
             q = p[i : i + 8192]
             np.multiply(_phase_angle(q.real, q.imag), scale, out=r[nt + i : nt + i + q.size])
-        raw = r[nt:] if keep_raw else None
-        if not comp:
-            self.samples_out += r.size
-            return (r, raw) if keep_raw else r
-        span = self._eq.size
-        if r.size < span:
-            self._tail = r.copy()
-            y = np.zeros(0)
+        if comp:
+            span = self._eq.size
+            if r.size < span:
+                self._tail = r.copy()
+                y = np.zeros(0)
+            else:
+                y = np.convolve(r, self._eq, mode="valid")  # symmetric: no flip needed
+                self._tail = r[r.size - span + 1 :].copy()
+                self.samples_out += y.size
         else:
-            y = np.convolve(r, self._eq, mode="valid")  # symmetric: no flip needed
-            self._tail = r[r.size - span + 1 :].copy()
+            y = r.copy() if keep_raw else r
             self.samples_out += y.size
-        return (y, raw) if keep_raw else y
+        if not keep_raw:
+            return y
+        steps = buf[nt:]
+        steps[0] = 0.0
+        return y, steps
 
 
 def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarray:
