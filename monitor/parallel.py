@@ -129,6 +129,7 @@ def plan_parts(
     *,
     align: int = SFDR_EVERY_GATES,
     min_gates: int = MIN_PART_GATES,
+    multiple: int = 1,
 ) -> list[tuple[int, int]]:
     """[(start, stop)] frames of up to `jobs` parts of whole gates (the last part
     takes the rest, partial gate included); one part when they would be shorter than
@@ -136,9 +137,13 @@ def plan_parts(
 
     Parts start on multiples of `align` gates: the quality meter's full gates (spur
     search, both mains families) fall every SFDR_EVERY_GATES gates, so each part starts
-    on one, as the gate would in a one-pass analysis."""
+    on one, as the gate would in a one-pass analysis. With `multiple` > 1 (the number
+    of workers) the count of parts is a multiple of it where there are enough gates, so
+    the workers get equal shares."""
     gates = frames // gate_n
     jobs = max(1, min(jobs, gates // min_gates))
+    if multiple > 1 and jobs > multiple:
+        jobs -= jobs % multiple
     if jobs == 1:
         return [(0, frames)]
     starts = sorted({round(k * gates / jobs / align) * align * gate_n for k in range(jobs)})
@@ -277,7 +282,11 @@ def analyze_parts(
     meta = source.meta
     gate_n = _gate_n(settings, meta)
     parts = plan_parts(
-        meta.frames, gate_n, jobs * PARTS_PER_JOB, min_gates=min_part_gates(settings)
+        meta.frames,
+        gate_n,
+        jobs * PARTS_PER_JOB,
+        min_gates=min_part_gates(settings),
+        multiple=jobs,
     )
     warm = Engine(meta, settings, keep_readings=False)
     try:

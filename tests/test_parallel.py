@@ -214,11 +214,14 @@ class TestBoundaries:
     frames=st.integers(1, 10**7),
     gate_n=st.integers(16, 200000),
     jobs=st.integers(1, 16),
+    workers=st.integers(1, 4),
 )
-def test_parts_cover_the_record_on_gate_boundaries(frames, gate_n, jobs):
-    parts = parallel.plan_parts(frames, gate_n, jobs)
+def test_parts_cover_the_record_on_gate_boundaries(frames, gate_n, jobs, workers):
+    parts = parallel.plan_parts(frames, gate_n, jobs, multiple=workers)
     assert parts[0][0] == 0 and parts[-1][1] == frames
     assert 1 <= len(parts) <= jobs
+    if len(parts) > workers:  # equal shares for the workers
+        assert len(parts) % workers == 0
     step = gate_n * parallel.SFDR_EVERY_GATES  # parts start on a full quality gate
     for (a, b), (c, _) in itertools.pairwise(parts):
         assert b == c and a % step == 0 and (b - a) // gate_n >= parallel.MIN_PART_GATES - 8
