@@ -315,8 +315,7 @@ class FmProcessor:
         self.k = meta.clock_factor
         self.setup: FmSetup | None = None
         self._demod: dfm.FmDemodulator | None = None
-        self._post_sos = None
-        self._post_zi = None
+        self._post_filter = None  # dsp.filters.SosStream of the post-demodulation chain
         self.post_filter = "none"
         self._join = dt.GateJoin()  # the carrier, gate by gate (offsets from the mixer)
         self._cnr = _MedianBins(CNR_MEDIAN_STEP_DB)
@@ -429,7 +428,10 @@ class FmProcessor:
         self.setup = setup
         fs_out = self._demod.fs_out_hz
         self.post_filter = post
-        self._post_sos = self._post_chain(post, self.fms.deemphasis, fs_out)
+        chain = self._post_chain(post, self.fms.deemphasis, fs_out)
+        from dsp import filters
+
+        self._post_filter = None if chain is None else filters.SosStream(chain)
         self._power = dfm.ModulationPowerMeter(
             fs_out, start_index=self._demod.outputs_for(start_frame)
         )
@@ -572,7 +574,7 @@ class FmProcessor:
     def _deviation(self, dev: np.ndarray) -> np.ndarray:
         """Post-filter the deviation; drop what a (re)started filter gives while it
         settles (the BS.412 clock moves over it)."""
-        dev_f = self._post(dev)
+        dev_f = self._post(dev, overwrite=True)
         if self._settle:
             cut = min(self._settle, dev_f.shape[0] // 2)
             dev_f = dev_f[cut:]
@@ -615,19 +617,16 @@ class FmProcessor:
 
     def _restart_run(self, t_s: float) -> None:
         """A new demodulator run: forget filter state, let the filters settle again."""
-        self._post_zi = None
+        if self._post_filter is not None:
+            self._post_filter.reset()
         self._run_t0 = t_s
         self._settle = int(math.ceil(self.settle_s() * self._demod.fs_out_hz))
 
-    def _post(self, dev: np.ndarray) -> np.ndarray:
-        if self._post_sos is None:
+    def _post(self, dev: np.ndarray, *, overwrite: bool = False) -> np.ndarray:
+        """The post-demodulation filter chain (state kept); overwrite: dev is ours."""
+        if self._post_filter is None:
             return dev
-        from scipy.signal import sosfilt
-
-        if self._post_zi is None:
-            self._post_zi = np.zeros((self._post_sos.shape[0], 2))
-        y, self._post_zi = sosfilt(self._post_sos, dev, zi=self._post_zi)
-        return y
+        return self._post_filter(dev, overwrite=overwrite)
 
     # -- a part of a stream (monitor.parallel) -------------------------------------------
     def first_setup(self, x: np.ndarray) -> FmSetup:
@@ -733,7 +732,7 @@ class FmProcessor:
         if later._last_tone is not None:
             self._last_tone, self._last_tone_gate = later._last_tone, later._last_tone_gate
         for name in (
-            "_gate_index", "_schedule", "_demod", "_post_zi", "_settle", "_run_t0",
+            "_gate_index", "_schedule", "_demod", "_post_filter", "_settle", "_run_t0",
             "_last_baseband", "_last_offset_hz", "_last_dev",
         ):  # fmt: skip
             setattr(self, name, getattr(later, name))
