@@ -1651,8 +1651,11 @@ def fit_bessel(
         jj = float(j @ j)
         return energy - float(a @ j) ** 2 / jj
 
-    grid = np.linspace(0.0, bmax, max(200, int(bmax * 100)) + 1)
-    jgrid = np.abs(sspec.jv(ks[None, :], grid[:, None]))
+    # a grid step of 1/40 puts a point within the basin of every minimum (they lie about
+    # a zero spacing of the J_k apart, ~pi); |J_-k| = |J_k| halves the evaluations
+    grid = np.linspace(0.0, bmax, max(200, int(bmax * 40)) + 1)
+    half = np.abs(sspec.jv(np.arange(kk + 1)[None, :], grid[:, None]))
+    jgrid = np.concatenate([half[:, :0:-1], half], axis=1)
     proj = jgrid @ a
     norm = np.einsum("ij,ij->i", jgrid, jgrid)
     r = energy - proj**2 / norm
