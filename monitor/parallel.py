@@ -70,6 +70,9 @@ MAX_JOBS = 8
 #: that another program slows holds up a small part, not half the record (and the
 #: progress bar moves more often)
 PARTS_PER_JOB = 4
+#: the FM modes' parts cost a gate of preroll each, and their gates several times an
+#: audio gate: more, shorter parts keep a slowed worker from holding up the end
+FM_PARTS_PER_JOB = 8
 
 
 def cpu_count() -> int:
@@ -284,7 +287,7 @@ def analyze_parts(
     parts = plan_parts(
         meta.frames,
         gate_n,
-        jobs * PARTS_PER_JOB,
+        jobs * (FM_PARTS_PER_JOB if settings.mode in ("beat", "iq") else PARTS_PER_JOB),
         min_gates=min_part_gates(settings),
         multiple=jobs,
     )
