@@ -103,14 +103,18 @@ def best_of(runs: dict, repeat: int) -> dict:
 def peak_rss_mb(path: Path, mode: str, bw: float) -> float:
     """Peak resident memory (MB) of a fresh process running one analyze_file call,
     workers included (the larger of the parent's and the largest child's)."""
+    # The process's own peak from /proc (VmHWM): ru_maxrss would carry over the peak of
+    # the benchmark process it was forked from before exec; the workers' from
+    # RUSAGE_CHILDREN (forked after exec). Both in kB.
     code = (
         "import resource, sys; sys.path.insert(0, sys.argv[1]);"
         "from monitor.engine import AnalysisSettings, analyze_file;"
         "from monitor.fm_engine import FmSettings;"
         "s = AnalysisSettings(mode=sys.argv[3], fm=FmSettings(if_bandwidth_hz=float(sys.argv[4])));"
         "analyze_file(sys.argv[2], settings=s, jobs=None);"
-        "r = resource.getrusage;"
-        "print(max(r(resource.RUSAGE_SELF).ru_maxrss, r(resource.RUSAGE_CHILDREN).ru_maxrss))"
+        "hwm = [int(ln.split()[1]) for ln in open('/proc/self/status') if ln.startswith('VmHWM')];"
+        "own = hwm[0] if hwm else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss;"
+        "print(max(own, resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss))"
     )
     try:
         import resource  # noqa: F401  (not on Windows)

@@ -60,8 +60,9 @@ from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine,
 PREROLL_S = 2.0
 #: fewest gates a part must hold for a split to be worth it
 MIN_PART_GATES = 60
-#: the same for the FM modes, whose gates cost several times more
-MIN_FM_PART_GATES = 24
+#: the same for the FM modes, whose gates cost several times more (a split of two parts
+#: pays from about 90 one-second gates: the parts' start-up and join take some 60 ms)
+MIN_FM_PART_GATES = 45
 #: with workers started by spawn or a fork server, the shortest recording split (s)
 MIN_SPAWN_SECONDS = 1800.0
 #: most worker processes

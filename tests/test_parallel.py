@@ -263,7 +263,7 @@ def _with_noise(path, level, seed, *, subtype=None, edit=None):
     return path
 
 
-FM_GATE = 0.5  # 60 gates in 30 s: parts of 32 and 28 gates (>= MIN_FM_PART_GATES)
+FM_GATE = 0.25  # 120 gates in 30 s: parts of 64 and 56 gates (>= MIN_FM_PART_GATES), t = 16 s
 # beat: carrier 7 kHz, 1 kHz tone, 2.4 kHz deviation (beta 2.4)
 BEAT = "0.4*sin(2*PI*7000*t+2.4*sin(2*PI*1000*t))"
 # I/Q at 96 kHz: carrier +12 kHz, 800 Hz tone, beta 3 (2.4 kHz deviation)
@@ -318,7 +318,10 @@ class TestFmParts:
         one = analyze_file(path, settings=settings, jobs=1)
         with open_source(path, mode=settings.mode) as src:
             gate_n = int(round(settings.gate_s * src.meta.fs_hz))
-            assert len(parallel.plan_parts(src.meta.frames, gate_n, 2, min_gates=24)) == 2
+            plan = parallel.plan_parts(
+                src.meta.frames, gate_n, 2, min_gates=parallel.MIN_FM_PART_GATES
+            )
+            assert [a // gate_n for a, _ in plan] == [0, 64]
         two = analyze_file(path, settings=settings, jobs=2)
         _compare_fm(one, two)
         return one, two
@@ -353,9 +356,9 @@ class TestFmParts:
         assert two.extra["fm"]["mod_tone_hz"] == pytest.approx(800.0, abs=1e-3)
 
     def test_tone_that_changes_at_a_part_start(self, fm_dir):
-        # The modulating tone steps from 1 kHz to 1.25 kHz exactly at gate 32 (the second
-        # part's first) and is absent on gates 28-31, so one pass searches afresh there:
-        # the part's start must still give one pass's figures.
+        # The modulating tone steps from 1 kHz to 1.25 kHz exactly at 16 s (gate 64, the
+        # second part's first) and is absent from 14 s on, so one pass searches afresh
+        # there: the part's start must still give one pass's figures.
         from monitor.fm_engine import FmSettings
 
         expr = (
@@ -366,12 +369,13 @@ class TestFmParts:
         s = AnalysisSettings(mode="beat", gate_s=FM_GATE, fm=FmSettings(if_bandwidth_hz=9000.0))
         _, two = self._both(path, s)
         tones = [r.mod_tone_hz for r in two.readings]
-        assert tones[27] == pytest.approx(1000.0, abs=0.01) and tones[29] is None
-        assert tones[33] == pytest.approx(1250.0, abs=0.01)
+        assert tones[54] == pytest.approx(1000.0, abs=0.01) and tones[58] is None
+        assert tones[66] == pytest.approx(1250.0, abs=0.01)
 
     def test_tone_lost_only_on_the_gate_before_a_part(self, fm_dir):
-        # Modulation off on gate 31 alone: one pass follows the tone of gate 30 into gate
-        # 32, a part searches afresh; the parent runs that part itself.
+        # Modulation off for the half second before the second part (gates 62-63): one
+        # pass follows the tone of gate 61 into gate 64, a part searches afresh; the
+        # parent runs that part itself.
         from monitor.fm_engine import FmSettings
 
         expr = "0.4*sin(2*PI*7000*t+if(between(t,15.5,16),0,2.4*sin(2*PI*1000*t)))"
