@@ -80,6 +80,8 @@ class LevelFigures:
         Mean of x, in the units of x.
     n_samples : int
         Number of samples.
+    mean_square : float
+        Mean of x^2, in the units of x squared (the rms before the dB scale).
     """
 
     rms_dbfs: float
@@ -87,6 +89,7 @@ class LevelFigures:
     clipped_samples: int
     dc_offset: float
     n_samples: int
+    mean_square: float = math.nan
 
 
 def _as_real_block(x: object, name: str = "x") -> np.ndarray:
@@ -183,6 +186,7 @@ def measure_level(
         clipped_samples=clipped,
         dc_offset=total / n,
         n_samples=n,
+        mean_square=mean_sq,
     )
 
 

@@ -991,7 +991,7 @@ class _levels:
         xr = np.ascontiguousarray(x).view(np.float64) if np.iscomplexobj(x) else x
         lvl = dq.measure_level(xr)
         self.acc.add_level(lvl)
-        self.sum_abs2 += float(np.dot(xr, xr))
+        self.sum_abs2 += lvl.mean_square * xr.shape[0]
         self.n += x.shape[0]
         return {
             "rms_dbfs": lvl.rms_dbfs,
