@@ -175,6 +175,10 @@ def modulation_index(peak_deviation_hz: float, mod_tone_hz: float) -> float:
 _ATAN_TAYLOR = tuple((-1.0) ** k / (2 * k + 1) for k in range(6))
 
 
+_SIGN_BIT = np.int32(-(2**31))
+_PI_BITS = np.array(math.pi, dtype=np.float32).view(np.int32)
+
+
 def _phase_angle(re: np.ndarray, im: np.ndarray) -> np.ndarray:
     """Angle of re + j*im in [-pi, pi] as float32, within 1e-6 rad of numpy.arctan2.
 
@@ -186,36 +190,44 @@ def _phase_angle(re: np.ndarray, im: np.ndarray) -> np.ndarray:
     float32, which numpy vectorises: about four times faster. float32 rounding limits the
     angle to about 1e-7 rad, i.e. 4e-4 Hz at a 24 kHz output rate.
     """
-    x = np.asarray(re, dtype=np.float32)
-    y = np.asarray(im, dtype=np.float32)
-    neg = np.signbit(x)  # with copysign below, -0.0 folds consistently
-    y = y * np.copysign(np.float32(1.0), x)
-    x = np.abs(x)
+    x = np.array(re, dtype=np.float32)  # new arrays: worked on in place below
+    y = np.array(im, dtype=np.float32)
+    neg = np.signbit(x)
+    # fold: y *= sign(x), by flipping y's sign bit where x's is set (-0.0 folds too)
+    xs = np.bitwise_and(x.view(np.int32), _SIGN_BIT)
+    np.bitwise_xor(y.view(np.int32), xs, out=y.view(np.int32))
+    np.abs(x, out=x)
     r = x * x
     r += y * y
     np.sqrt(r, out=r)
     r += x
     with np.errstate(divide="ignore", invalid="ignore"):
-        u = np.divide(y, r)  # |u| <= 1; 0/0 only at the origin
+        u = np.divide(y, r, out=r)  # |u| <= 1; 0/0 only at the origin
+    s = x  # x is not needed any more: its buffer holds the squares
     for _ in range(2):
-        s = u * u
+        np.multiply(u, u, out=s)
         s += 1.0
         np.sqrt(s, out=s)
         s += 1.0
         np.divide(u, s, out=u)
-    s = u * u
+    np.multiply(u, u, out=s)
     acc = np.full_like(u, _ATAN_TAYLOR[-1])
     for c in _ATAN_TAYLOR[-2::-1]:
         acc *= s
         acc += np.float32(c)
     acc *= u
     acc *= np.float32(8.0)
-    # Undo the fold: points from the left half-plane move by +pi (upper) or -pi (lower).
-    corr = np.copysign(np.float32(math.pi), y)  # sign(y) = -sign(im) where folded
+    # Undo the fold: points from the left half-plane move by +pi (upper) or -pi (lower):
+    # pi with the folded y's sign (sign(y) = -sign(im) where folded), where x was < 0
+    corr = np.bitwise_and(y.view(np.int32), _SIGN_BIT, out=xs)
+    corr |= _PI_BITS
+    corr = corr.view(np.float32)
     corr *= neg
     acc -= corr
-    bad = ~np.isfinite(acc)
-    if bad.any():
+    with np.errstate(over="ignore", invalid="ignore"):
+        finite = np.isfinite(np.dot(acc, acc))  # angles are < 4: no overflow
+    if not finite:
+        bad = ~np.isfinite(acc)
         acc[bad] = np.arctan2(np.asarray(im)[bad], np.asarray(re)[bad])
     return acc
 
@@ -715,8 +727,8 @@ class FmDemodulator:
         r[:nt] = self._tail
         scale = np.float64(self.fs_out_hz / _TWO_PI)
         # Pieces keep the float32 temporaries small enough to be reused, not re-faulted.
-        for i in range(0, p.size, 8192):
-            q = p[i : i + 8192]
+        for i in range(0, p.size, 16384):
+            q = p[i : i + 16384]
             np.multiply(_phase_angle(q.real, q.imag), scale, out=r[nt + i : nt + i + q.size])
         if comp:
             span = self._eq.size

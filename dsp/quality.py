@@ -265,6 +265,16 @@ class QualityFigures:
     total_power: float
 
 
+@lru_cache(maxsize=16)
+def _table_rows(m_len: int, r_len: int) -> np.ndarray:
+    """The sample offsets of the tables: m < m_len, then r * m_len for r <= r_len."""
+    rows = np.concatenate(
+        [np.arange(m_len, dtype=np.float64), np.arange(r_len + 1, dtype=np.float64) * m_len]
+    )
+    rows.setflags(write=False)
+    return rows
+
+
 def _tables(
     w_base: np.ndarray, sel: np.ndarray, q_max: int, m_len: int, r_len: int
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -274,12 +284,19 @@ def _tables(
     Only the q = 1 columns are evaluated with trig functions; the harmonics are their
     powers (a running product, relative error about q * eps).
     """
-    ang = (
-        np.concatenate(
-            [np.arange(m_len, dtype=np.float64), np.arange(r_len + 1, dtype=np.float64) * m_len]
-        )[None, :]
-        * w_base[:, None]
-    )  # (B, rows)
+    rows = _table_rows(m_len, r_len)
+    if w_base.size == 1 and np.array_equal(sel, np.arange(sel.size)):
+        # one base line and its first harmonics (no hum lines): the columns are the
+        # running powers themselves, built in place
+        ang = rows * w_base[0]
+        tab = np.empty((rows.size, sel.size), dtype=np.complex128)
+        e = tab[:, 0]
+        np.cos(ang, out=e.real)
+        np.sin(ang, out=e.imag)
+        for q in range(1, sel.size):
+            np.multiply(tab[:, q - 1], e, out=tab[:, q])
+        return tab[:m_len], tab[m_len:]
+    ang = rows[None, :] * w_base[:, None]  # (B, rows)
     e = (np.cos(ang) + 1j * np.sin(ang)).ravel()
     powers = np.empty((q_max, e.size), dtype=np.complex128)
     powers[0] = e
