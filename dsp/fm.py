@@ -749,6 +749,9 @@ class FmDemodulator:
         return y, steps
 
 
+_NCO_TABLES: dict[tuple[float, int], np.ndarray] = {}
+
+
 def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarray:
     """exp(-j 2 pi frac(c * j)) for consecutive integers j, by table and block restarts.
 
@@ -760,7 +763,14 @@ def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarr
     if n == 0:
         return np.zeros(0, dtype=np.complex128)
     c = float(cycles_per_sample)
-    base = np.exp(-1j * _TWO_PI * c * np.arange(min(table, n)))
+    key = (c, table)
+    full = _NCO_TABLES.get(key)
+    if full is None:  # one table per demodulator's mixer, kept
+        if len(_NCO_TABLES) >= 16:
+            _NCO_TABLES.pop(next(iter(_NCO_TABLES)))
+        full = _NCO_TABLES[key] = np.exp(-1j * _TWO_PI * c * np.arange(table))
+        full.setflags(write=False)
+    base = full[: min(table, n)]
     nblocks = -(-n // base.size)
     starts = int(j[0]) + base.size * np.arange(nblocks)
     phase0 = np.mod(c * starts, 1.0)
@@ -946,8 +956,10 @@ def phase_line(block: DemodBlock) -> PhaseLine:
     mean_ph = s0 / n
     env = block.envelope()
     a = float(env.sum()) / n
-    env -= a
-    var_env = float(np.dot(env, env)) / n
+    var_env = float(np.dot(env, env)) / n - a * a
+    if var_env < 1e-9 * a * a:  # a very clean carrier: the difference lost its digits
+        env -= a
+        var_env = float(np.dot(env, env)) / n
     sigma_ph2 = max(var_env / (a * a), 1e-30) if a > 0 else math.inf
     tt_s = tt / (fs * fs)
     return PhaseLine(
