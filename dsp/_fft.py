@@ -40,34 +40,29 @@ def _load():
 _PP = _load()
 
 
-def rfft(x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-    """Real-input FFT of all of x (len(x) // 2 + 1 bins), into `out` when given."""
-    if _PP is not None:
-        return _PP.r2c(x, (0,), True, 0, out, 1)
-    y = sfft.rfft(x)
+def _into(y: np.ndarray, out: np.ndarray | None) -> np.ndarray:
     if out is None:
         return y
     out[:] = y
     return out
+
+
+def rfft(x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """Real-input FFT of all of x (len(x) // 2 + 1 bins), into `out` when given."""
+    if _PP is not None:
+        return _PP.r2c(x, (0,), True, 0, out, 1)
+    return _into(sfft.rfft(x), out)
 
 
 def fft(x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """Complex FFT of all of x, into `out` when given (out may be x)."""
     if _PP is not None:
         return _PP.c2c(x, (0,), True, 0, out, 1)
-    y = sfft.fft(x)
-    if out is None:
-        return y
-    out[:] = y
-    return out
+    return _into(sfft.fft(x), out)
 
 
 def ifft(x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """Inverse complex FFT (1/n normalised), into `out` when given (out may be x)."""
     if _PP is not None:
         return _PP.c2c(x, (0,), False, 2, out, 1)
-    y = sfft.ifft(x)
-    if out is None:
-        return y
-    out[:] = y
-    return out
+    return _into(sfft.ifft(x), out)

@@ -336,3 +336,26 @@ class TestIqStatistics:
     def test_empty(self):
         with pytest.raises(ValueError, match="no gates"):
             IqStatistics().result()
+
+
+class TestFftPaths:
+    def test_direct_and_public_agree(self, monkeypatch):
+        # dsp._fft calls pocketfft directly when it matches scipy.fft at import, and
+        # scipy.fft itself otherwise: both paths give scipy.fft's transforms.
+        import scipy.fft as sfft
+
+        from dsp import _fft
+
+        rng = np.random.default_rng(9)
+        x = rng.standard_normal(3840)
+        z = rng.standard_normal(3840) + 1j * rng.standard_normal(3840)
+        for direct in (True, False):
+            if not direct:
+                monkeypatch.setattr(_fft, "_PP", None)
+            np.testing.assert_allclose(_fft.rfft(x), sfft.rfft(x), rtol=1e-12, atol=1e-9)
+            out = np.empty(1921, dtype=np.complex128)
+            assert _fft.rfft(x, out=out) is out
+            np.testing.assert_allclose(_fft.fft(z.copy()), sfft.fft(z), rtol=1e-12, atol=1e-9)
+            w = z.copy()
+            assert _fft.ifft(w, out=w) is w
+            np.testing.assert_allclose(w, sfft.ifft(z), rtol=1e-12, atol=1e-12)
