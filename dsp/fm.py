@@ -580,8 +580,7 @@ class FmDemodulator:
             np.conjugate(xr[1 : (n + 1) // 2][::-1], out=xf[h:])
             xf[h:] *= g[h:]
         else:
-            _fft.fft(seg, out=xf)
-            xf *= g
+            np.multiply(_fft.fft(seg, out=xf), g, out=xf)
         k = n // d
         if d > 1:
             np.add.reduce(xf.reshape(d, k), axis=0, out=folded)
@@ -713,8 +712,10 @@ class FmDemodulator:
         p *= self._rot
         # Keep float32 in range (the angle does not depend on scale); a sparse look is
         # enough because the filtered amplitude varies slowly.
+        # (float32 squares overflow above 1.8e19 and lose everything below 1e-19: a margin
+        # of 1e7 either side for the sparse look and the amplitude's variation)
         big = float(np.max(np.abs(p.view(np.float64)[::15]))) if p.size else 1.0
-        if big > 1e30 or 0.0 < big < 1e-30:
+        if big > 1e12 or 0.0 < big < 1e-12:
             p *= 1.0 / big
         comp = self.droop_compensation
         nt = self._tail.size if comp else 0
@@ -1150,9 +1151,16 @@ class DeviationHistogram:
 
     def _cover(self, lo_v: float, hi_v: float) -> None:
         """Widen the bins (merging pairs) and grow the range until lo_v..hi_v fit."""
+        self._cover_bins(math.floor(lo_v / self.bin_hz), math.floor(hi_v / self.bin_hz))
+
+    def _cover_bins(self, lo_bin: int, hi_bin: int) -> None:
+        """`_cover` for the bins lo_bin..hi_bin at the current width (integers, so no
+        rounding of edges: bin i at width w is bin i // 2**k at width w * 2**k)."""
+        base_w = self.bin_hz
         while True:
-            lo = math.floor(lo_v / self.bin_hz)
-            hi = math.floor(hi_v / self.bin_hz)
+            scale = round(self.bin_hz / base_w)
+            lo = lo_bin // scale
+            hi = hi_bin // scale
             if self._counts.size:
                 lo = min(lo, self._first)
                 hi = max(hi, self._first + self._counts.size - 1)
@@ -1194,7 +1202,7 @@ class DeviationHistogram:
             self._merge()
         if not math.isclose(self.bin_hz, width, rel_tol=1e-12):
             raise ValueError(f"bin widths {self.bin_hz} and {width} do not share a base width")
-        self._cover(first * width, (first + counts.size) * width - 0.5 * width)
+        self._cover_bins(first, first + counts.size - 1)
         if self.bin_hz > width:  # covering widened our bins: widen theirs alike
             twin = DeviationHistogram(width, max_bins=self.max_bins)
             twin._counts, twin._first = counts.copy(), first
@@ -1366,6 +1374,10 @@ class ModulationPowerMeter:
         x = _as_real_1d("inst_freq_hz", inst_freq_hz)
         if x.size == 0:
             return
+        if check_finite:  # before anything is counted: bad input leaves the meter as it was
+            with np.errstate(over="ignore", invalid="ignore"):
+                if not np.isfinite(np.dot(x, x)) and not np.all(np.isfinite(x)):
+                    raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
         pos = 0
         total = 0.0
         while pos < x.size:
@@ -1379,8 +1391,6 @@ class ModulationPowerMeter:
             self._pos += take
             if self._pos % self._win == 0:
                 self._close()
-        if check_finite and not math.isfinite(total) and not np.all(np.isfinite(x)):
-            raise ValueError("inst_freq_hz must be finite (found NaN or inf)")
         self._all += total
         self._all_n += x.size
 

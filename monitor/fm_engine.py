@@ -347,6 +347,7 @@ class FmProcessor:
         self._iq = None if self.kind == "real" else _iq_statistics()
         self._levels = _levels()
         self.no_tone_gates = 0
+        self._iq_dead_gates = 0  # gates where one I/Q arm carried no signal
         self._restarts = 0  # demodulator runs begun after the first (gaps in the input)
         self._given: FmSetup | None = None  # set-up chosen elsewhere (monitor.parallel)
         self._warm_tone: dt.ToneEstimate | None = None  # a part's tone before its start
@@ -357,6 +358,13 @@ class FmProcessor:
         """Find the carrier in the first gate and choose the IF bandwidth and filter."""
         fms = self.fms
         notes: list[str] = []
+        if self.kind == "complex" and _iq_health_or_none(x) is None:
+            dead = "I (left)" if float(np.var(x.real)) <= float(np.var(x.imag)) else "Q (right)"
+            raise InputError(
+                f"{self.meta.source}: the {dead} channel of the I/Q pair carries no signal in "
+                "the first gate; check the stereo connection, or analyse the other channel "
+                "with --mode beat"
+            )
         spectrum = _gate_power(x, self.fs, self.kind)  # one transform for both questions
         centroid, width, _ = find_carrier(
             x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz, spectrum=spectrum
@@ -436,6 +444,10 @@ class FmProcessor:
             fs_out, start_index=self._demod.outputs_for(start_frame)
         )
         nfft = 1 << max(8, min(14, int(math.log2(max(256, fs_out / 4.0)))))
+        # at least one segment in every gate (short gates: shorter segments)
+        per_gate = int(self.settings.gate_s * self.fs) // self._demod.decimation
+        while nfft > 16 and nfft > per_gate:
+            nfft //= 2
         self._spec = dspec.SpectrumAverager(fs_out, nfft, kind="complex", overlap=0.0)
 
     @staticmethod
@@ -472,15 +484,22 @@ class FmProcessor:
             self._restart_run(t_s)
             self._restarts += 1
         if self.kind == "complex":
-            health = _iq_health(x)
-            self._iq.add(health)
-            if self.fms.iq_correct:
-                x = _iq_correct(x, health)
+            health = _iq_health_or_none(x)
+            if health is None:
+                self._iq_dead_gates += 1  # an arm without signal: no figures, no correction
+            else:
+                self._iq.add(health)
+                if self.fms.iq_correct:
+                    x = _iq_correct(x, health)
         demod = self._demod
         block = demod.process_block(x)
         inst = block.inst_hz
         nz = block.n_baseband
         if nz < 32:
+            # too few samples to measure; the BS.412 clock still moves over them
+            cut = min(self._settle, inst.shape[0] // 2)
+            self._settle -= cut
+            self._power.skip(inst.shape[0])
             self.no_tone_gates += 1
             return Reading(
                 t_s=t_s, gate_s=x.shape[0] / self.fs, frequency_hz=None, uncertainty_hz=None,
@@ -658,17 +677,19 @@ class FmProcessor:
         demod = self._demod
         lead = demod.settle_inputs + int(math.ceil(PART_SETTLE_FACTOR * self.settle_s() * self.fs))
         gate_start = max(0, start - gate_n)
-        pre = max(0, gate_start - lead)
+        # the run-in starts on a gate boundary and goes gate by gate, as one pass does:
+        # each gate its own carrier offset (and I/Q correction) into the post filter, so
+        # the filter's state at the part's start is one pass's to rounding; the first
+        # gate, sought into, gives a transient that the gates after it let die out
+        pre = max(0, gate_start - -(-lead // gate_n) * gate_n)
         demod.seek(pre)
         last = None
-        # the stretch before the gate settles the filters; the gate before the part is
-        # demodulated whole, as one pass does, so its offset and figures are one pass's
-        for a, b in ((pre, gate_start), (gate_start, start)):
-            if b <= a:
-                continue
-            x = np.concatenate([blk.samples for blk in source.blocks_between(a, b)])
+        for a in range(pre, start, gate_n):
+            x = np.concatenate([blk.samples for blk in source.blocks_between(a, a + gate_n)])
             if self.kind == "complex" and self.fms.iq_correct:
-                x = _iq_correct(x, _iq_health(x))
+                health = _iq_health_or_none(x)
+                if health is not None:
+                    x = _iq_correct(x, health)
             blk = demod.process_block(x)
             offset = dfm.phase_line(blk).offset_hz if blk.n_baseband >= 2 else 0.0
             last = self._post(blk.inst_hz - offset)
@@ -728,6 +749,7 @@ class FmProcessor:
         self._tone_n += later._tone_n
         self._hold = max(self._hold, later._hold)
         self.no_tone_gates += later.no_tone_gates
+        self._iq_dead_gates += later._iq_dead_gates
         self._restarts += later._restarts
         if later._last_tone is not None:
             self._last_tone, self._last_tone_gate = later._last_tone, later._last_tone_gate
@@ -928,6 +950,11 @@ class FmProcessor:
 
     def summary_warnings(self) -> list[str]:
         out = list(self.setup.notes) if self.setup is not None else []
+        if self._iq_dead_gates:
+            out.append(
+                f"I/Q: one arm carried no signal in {self._iq_dead_gates} gate(s) (a dead or "
+                "unconnected channel?): no I/Q health there, nor correction"
+            )
         s = self.fm_summary()
         if s is None:
             return out
@@ -1016,6 +1043,14 @@ def _iq_health(z):
     from dsp import iq
 
     return iq.iq_health(z)
+
+
+def _iq_health_or_none(z):
+    """I/Q health of a gate, or None when one arm carries no signal there."""
+    try:
+        return _iq_health(z)
+    except ValueError:
+        return None
 
 
 def _iq_statistics():

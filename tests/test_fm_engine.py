@@ -114,6 +114,19 @@ class TestBeat:
         assert 25 < fm["cnr_db"] < 40  # measured in the (wider) demodulator band
 
 
+class TestShortGates:
+    def test_bandwidths_at_a_tenth_of_a_second(self, ffmpeg, tmp_path):
+        # 0.1 s gates hold 1200 baseband samples at 12 kHz: the averaged spectrum takes
+        # shorter segments, so the occupied and -26 dB bandwidths are still given (ffmpeg
+        # beta 2 at 800 Hz: Carson 4.8 kHz; 99% of the power inside 4.8 kHz, J_k from
+        # scipy.special in test_fm; here within a tenth of it)
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav")
+        s = AnalysisSettings(mode="beat", gate_s=0.1, fm=FmSettings(if_bandwidth_hz=8000.0))
+        fm = analyze_file(p, settings=s).extra["fm"]
+        assert fm["occupied_bw_hz"] == pytest.approx(4800.0, rel=0.1)
+        assert fm["bw_26db_hz"] is not None
+
+
 class TestIq:
     def test_ffmpeg_iq(self, ffmpeg, tmp_path):
         p = iq_fm(ffmpeg, tmp_path / "iq.wav")
@@ -248,6 +261,14 @@ class TestBadInput:
     def test_audio_file_as_iq(self, ffmpeg, tmp_path, capsys):
         p = beat_fm(ffmpeg, tmp_path / "fm.wav")
         self._fails(capsys, "analyze", str(p), "--mode", "iq", match="--mode iq needs a stereo")
+
+    def test_dead_q_channel(self, ffmpeg, tmp_path, capsys):
+        # ffmpeg I/Q with the Q (right) channel silenced by numpy: named, not a traceback
+        p = iq_fm(ffmpeg, tmp_path / "iq.wav", rate=48000, offset=6000.0, beta=0.5)
+        x, fs = sf.read(p)
+        x[:, 1] = 0.0
+        sf.write(p, x, fs, subtype="FLOAT")
+        self._fails(capsys, "analyze", str(p), "--mode", "iq", match="Q (right) channel")
 
     def test_iq_file_as_audio_warns(self, ffmpeg, tmp_path, capsys):
         p = iq_fm(ffmpeg, tmp_path / "iq.wav", rate=48000, offset=3000.0, beta=0.5)

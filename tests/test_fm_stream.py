@@ -137,6 +137,19 @@ class TestDroopEqualiser:
             assert np.sinc(tone / dm.fs_out_hz) < 0.95
 
 
+class TestScale:
+    @pytest.mark.parametrize("amplitude", [1e-13, 1e-8, 1e6, 1e14])
+    def test_output_does_not_depend_on_level(self, amplitude):
+        # The discriminator's float32 angle is kept in range whatever the input level:
+        # the same FM at 1e-13 .. 1e14 gives the output of amplitude 1 (to the float32
+        # angle's rounding, 1e-7 rad at 12 kHz).
+        x = _fm(FS, 1.0, 9000.0, 2000.0, 1000.0, "real", 200.0)
+        ref = FmDemodulator(FS, 9000.0, 10000.0, oversample=1.2).process(x)
+        with np.errstate(all="raise"):
+            got = FmDemodulator(FS, 9000.0, 10000.0, oversample=1.2).process(amplitude * x)
+        assert np.max(np.abs(got - ref)) < 1e-2
+
+
 class TestSeek:
     @pytest.mark.parametrize(
         ("kind", "fs", "carrier"), [("real", FS, 9000.0), ("complex", 192000, 30000.0)]
@@ -222,6 +235,13 @@ class TestPowerMeterParts:
         assert m.result().power_dbr == pytest.approx(modulation_power_dbr(ms.max()), abs=1e-12)
         assert m.result().n_windows == 3
 
+    def test_bad_input_leaves_the_meter_alone(self):
+        m = ModulationPowerMeter(10.0)
+        m.update(np.full(50, 100.0))
+        with pytest.raises(ValueError, match="finite"):
+            m.update(np.array([1.0, np.nan]))
+        assert m.result().power_dbr == pytest.approx(modulation_power_dbr(1e4), abs=1e-12)
+
     def test_merge_checks_the_clock(self):
         a = ModulationPowerMeter(10.0)
         a.update(np.ones(100))
@@ -253,6 +273,19 @@ class TestHistogramParts:
             assert a.exceeded_hz(q) == pytest.approx(
                 np.quantile(np.abs(x), 1 - q), abs=2 * one.bin_hz
             )
+
+    def test_widths_not_exact_in_binary(self):
+        # a base width of 0.3 Hz (not a binary fraction): bins are merged by index, so
+        # the merged histogram is still one histogram's, count for count
+        rng = np.random.default_rng(11)
+        x = np.concatenate([5.0 * rng.standard_normal(3000), 900.0 * rng.standard_normal(3000)])
+        one = DeviationHistogram(0.3, max_bins=512)
+        one.update(x)
+        a, b = DeviationHistogram(0.3, max_bins=512), DeviationHistogram(0.3, max_bins=512)
+        a.update(x[:3000])
+        b.update(x[3000:])
+        a.merge(b)
+        assert a.to_dict() == one.to_dict()
 
     def test_merge_into_empty_and_from_empty(self):
         a, b = DeviationHistogram(1.0), DeviationHistogram(1.0)
