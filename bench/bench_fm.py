@@ -15,10 +15,15 @@ import os
 import sys
 import time
 
-import numpy as np
-import scipy.signal as ssig
+# one BLAS thread, as the engine runs (see monitor/__init__.py): the CPU column then means
+# one core
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
-from dsp.fm import FmDemodulator, carson_bandwidth_hz, deviation_figures
+import numpy as np  # noqa: E402
+import scipy.signal as ssig  # noqa: E402
+
+from dsp.fm import FmDemodulator, carson_bandwidth_hz, deviation_figures  # noqa: E402
 
 
 def _audio_filter(fs_hz: float, band: str):
