@@ -306,9 +306,15 @@ def _tables(
     return tab[:m_len], tab[m_len:]
 
 
+@lru_cache(maxsize=64)
 def _fold_shape(n: int) -> tuple[int, int]:
-    m_len = max(1, math.isqrt(n))
-    return m_len, n // m_len
+    """(M, R) with R * M <= n, M near sqrt(n); an exact divisor when there is one near
+    (no tail left over: two fewer products per projection)."""
+    root = max(1, math.isqrt(n))
+    for m in range(root, max(1, (3 * root) // 4) - 1, -1):
+        if n % m == 0:
+            return m, n // m
+    return root, n // root
 
 
 def _project(x: np.ndarray, inner: np.ndarray, outer: np.ndarray) -> np.ndarray:
