@@ -692,7 +692,13 @@ class Engine:
         while pos < x.shape[0]:
             if self._fill == 0:
                 self._gate_start = block.start + pos
-                if x.shape[0] - pos >= self.gate_n:
+                whole = (x.shape[0] - pos) // self.gate_n
+                if whole > 1 and self.on_view is None and hasattr(self.processor, "process_many"):
+                    # whole gates inside the block, measured together where they lie
+                    out.extend(self._emit_many(x[pos : pos + whole * self.gate_n], whole))
+                    pos += whole * self.gate_n
+                    continue
+                if whole:
                     # a whole gate inside the block: measured where it lies, not copied
                     out.append(self._emit(x[pos : pos + self.gate_n]))
                     pos += self.gate_n
@@ -705,6 +711,30 @@ class Engine:
                 out.append(self._emit(self._buf))
                 self._fill = 0
         return out
+
+    def _emit_many(self, x: np.ndarray, count: int) -> list[Reading]:
+        """`count` consecutive whole gates of x through the processor's batch path (the
+        same readings as gate by gate)."""
+        n, fs = self.gate_n, self.meta.fs_hz
+        gates = [
+            (
+                x[i * n : (i + 1) * n],
+                (self._gate_start + i * n) / fs,
+                self._contiguous if i == 0 else True,
+                self._overflow if i == 0 else False,
+            )
+            for i in range(count)
+        ]
+        readings = self.processor.process_many(gates)
+        self._contiguous = True
+        self._overflow = False
+        self.gates += count
+        if self.keep_readings:
+            self.readings.extend(readings)
+        if self.on_reading is not None:
+            for r in readings:
+                self.on_reading(r)
+        return readings
 
     def _emit(self, gate: np.ndarray) -> Reading:
         r = self.processor.process(

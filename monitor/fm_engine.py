@@ -470,10 +470,37 @@ class FmProcessor:
 
     # -- per gate ----------------------------------------------------------------------
     def process(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool):
-        from monitor.engine import Reading, quality_fields
+        """Measure one gate; returns its Reading."""
+        return self.process_many([(x, t_s, contiguous, overflow)])[0]
 
+    def process_many(self, gates) -> list:
+        """Measure consecutive gates, [(samples, t_s, contiguous, overflow), ...], in
+        order; returns their Readings.
+
+        The same operations as gate by gate, in the same order within each chain of
+        state (demodulator, filters, tone tracking, schedules, sums), so the readings are
+        those of `process` called gate by gate, bit for bit. Taken stage by stage over
+        the gates, the small-array stages (the phase line, the tone fit, the quality
+        meter) run with their code and tables warm instead of after each gate's large
+        transforms: a recording analysed whole goes through them in batches.
+        """
+        gates = list(gates)
+        # a gap restarts the demodulator and the filters: the gates from there on are a
+        # batch of their own, after the gates before it are through every stage
+        cut = next((i for i in range(1, len(gates)) if not gates[i][2]), None)
+        if cut is not None:
+            return self.process_many(gates[:cut]) + self.process_many(gates[cut:])
+        ctx = [self._demodulate(*g) for g in gates]
+        for c in ctx:
+            self._measure_carrier_and_deviation(c)
+        for c in ctx:
+            self._measure_tone(c)
+        for c in ctx:
+            self._measure_quality(c)
+        return [self._reading(c) for c in ctx]
+
+    def _demodulate(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool) -> dict:
         gate_index = self._gate_index
-        full = self._schedule.next_gate(gate_index)
         self._gate_index += 1
         lvl = self._levels.add(x)
         if self._demod is None:
@@ -491,26 +518,33 @@ class FmProcessor:
                 self._iq.add(health)
                 if self.fms.iq_correct:
                     x = _iq_correct(x, health)
-        demod = self._demod
-        block = demod.process_block(x)
+        return {
+            "gate_index": gate_index,
+            "t_s": t_s,
+            "gate_s": x.shape[0] / self.fs,
+            "contiguous": contiguous,
+            "overflow": overflow,
+            "lvl": lvl,
+            "block": self._demod.process_block(x),
+            "dev_f": None,
+            "tone": None,
+            "qual": None,
+        }
+
+    def _measure_carrier_and_deviation(self, c: dict) -> None:
+        block = c["block"]
         inst = block.inst_hz
-        nz = block.n_baseband
-        if nz < 32:
+        if block.n_baseband < 32:
             # too few samples to measure; the BS.412 clock still moves over them
             cut = min(self._settle, inst.shape[0] // 2)
             self._settle -= cut
             self._power.skip(inst.shape[0])
-            self.no_tone_gates += 1
-            return Reading(
-                t_s=t_s, gate_s=x.shape[0] / self.fs, frequency_hz=None, uncertainty_hz=None,
-                amplitude_dbfs=None, tone_snr_db=None, contiguous=contiguous,
-                overflow=overflow, **lvl,
-            )  # fmt: skip
-        fs_out = demod.fs_out_hz
+            return
+        fs_out = block.fs_out_hz
         line = dfm.phase_line(block)
-        offset, s_f = line.offset_hz, line.sigma_offset_hz
-        cnr_db = 10 * math.log10(line.cnr) if line.cnr > 0 else -math.inf
-        carrier = self.setup.carrier_hz + offset
+        offset = line.offset_hz
+        c["line"] = line
+        c["cnr_db"] = cnr_db = 10 * math.log10(line.cnr) if line.cnr > 0 else -math.inf
         # The baseband samples of one demodulator run are consecutive, so their index
         # fixes each gate's time up to a constant, which is all the phase join needs; the
         # join follows the baseband phase, i.e. the offset from the mixer.
@@ -518,19 +552,20 @@ class FmProcessor:
         self._join.add(
             t_ref,
             offset,
-            s_f,
+            line.sigma_offset_hz,
             line.phase_rad,
             line.sigma_phase_rad,
-            contiguous and not overflow,
+            c["contiguous"] and not c["overflow"],
         )
         self._cnr.add(cnr_db)
-        self._spectrum_update(block, gate_index)
+        self._spectrum_update(block, c["gate_index"])
         self._last_baseband = block
         self._last_offset_hz = offset
         dev_f = self._deviation(inst - offset)
-        self._last_dev = dev_f
+        self._last_dev = c["dev_f"] = dev_f
         # the discriminator's output is finite by construction (so is the filter's)
         figs = dfm.deviation_figures(dev_f, check_finite=False)
+        c["figs"] = figs
         self._dev_n += figs.n_samples
         self._dev_ms_n += figs.rms_hz**2 * figs.n_samples
         self._dev_peak_pos = max(self._dev_peak_pos, figs.peak_pos_hz)
@@ -538,41 +573,66 @@ class FmProcessor:
         self._hist.update(dev_f, check_finite=False)
         self._power.update(dev_f, check_finite=False)
         self._hold = max(self._hold, figs.peak_pos_hz, -figs.peak_neg_hz)
-        tone = qual = None
-        tone_amp = 0.0
-        if cnr_db >= CNR_MIN_DB and dev_f.shape[0] >= 64:
-            tone = self._tone(dev_f, fs_out, self._last_tone)
-        if tone is not None:
-            self._last_tone, self._last_tone_gate = tone, gate_index
-            w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
-            self._tone_w += w
-            self._tone_wf += w * tone.frequency_hz
-            # the tone's deviation without the discriminator's residual droop
-            tone_amp = tone.amplitude / float(demod.droop_response(tone.frequency_hz))
-            self._tone_amp_sum += tone_amp
-            self._tone_n += 1
-            if 0 < tone.frequency_hz < fs_out / 2:
-                # the spur search (the dearest part) on a sample of gates, as in audio
-                # mode (engine.QualitySchedule); no hum fit: hum on the modulation is
-                # noise here (SNR counts it so either way) and has no figure of its own
-                qual = dq.measure_quality(
-                    dev_f, fs_out, fundamental_hz=tone.frequency_hz, sfdr=full, mains=None
-                )
-                self._schedule.measured(qual, full)
-                self._quality.add(qual)
-        else:
+        c["hold"] = self._hold
+
+    def _measure_tone(self, c: dict) -> None:
+        dev_f = c["dev_f"]
+        if dev_f is None or c["cnr_db"] < CNR_MIN_DB or dev_f.shape[0] < 64:
+            return
+        tone = self._tone(dev_f, c["block"].fs_out_hz, self._last_tone)
+        if tone is None:
+            return
+        c["tone"] = tone
+        self._last_tone, self._last_tone_gate = tone, c["gate_index"]
+        w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
+        self._tone_w += w
+        self._tone_wf += w * tone.frequency_hz
+        # the tone's deviation without the discriminator's residual droop
+        c["tone_amp"] = amp = tone.amplitude / float(self._demod.droop_response(tone.frequency_hz))
+        self._tone_amp_sum += amp
+        self._tone_n += 1
+
+    def _measure_quality(self, c: dict) -> None:
+        full = self._schedule.next_gate(c["gate_index"])
+        tone = c["tone"]
+        if tone is None:
             self.no_tone_gates += 1
+            return
+        fs_out = c["block"].fs_out_hz
+        if 0 < tone.frequency_hz < fs_out / 2:
+            # the spur search (the dearest part) on a sample of gates, as in audio mode
+            # (engine.QualitySchedule); no hum fit: hum on the modulation is noise here
+            # (SNR counts it so either way) and has no figure of its own
+            qual = dq.measure_quality(
+                c["dev_f"], fs_out, fundamental_hz=tone.frequency_hz, sfdr=full, mains=None
+            )
+            self._schedule.measured(qual, full)
+            self._quality.add(qual)
+            c["qual"] = qual
+
+    def _reading(self, c: dict):
+        from monitor.engine import Reading, quality_fields
+
+        if "figs" not in c:
+            return Reading(
+                t_s=c["t_s"], gate_s=c["gate_s"], frequency_hz=None, uncertainty_hz=None,
+                amplitude_dbfs=None, tone_snr_db=None, contiguous=c["contiguous"],
+                overflow=c["overflow"], **c["lvl"],
+            )  # fmt: skip
         k = self.k
+        line, figs, tone = c["line"], c["figs"], c["tone"]
+        carrier = self.setup.carrier_hz + line.offset_hz
+        s_f = line.sigma_offset_hz
         rf = rf_from_carrier(self.meta, carrier * k)
         n_h = max(1, self.meta.harmonic)
         return Reading(
-            t_s=t_s,
-            gate_s=x.shape[0] / self.fs,
+            t_s=c["t_s"],
+            gate_s=c["gate_s"],
             frequency_hz=(rf / n_h if rf is not None else carrier * k),
             uncertainty_hz=s_f * k / (n_h if rf is not None else 1),
             amplitude_dbfs=None,
             tone_snr_db=None,
-            **{k: v for k, v in quality_fields(qual).items() if k in _DEMOD_FIELDS},
+            **{f: v for f, v in quality_fields(c["qual"]).items() if f in _DEMOD_FIELDS},
             carrier_hz=carrier * k,
             carrier_uncertainty_hz=s_f * k,
             rf_hz=rf,
@@ -581,13 +641,13 @@ class FmProcessor:
             deviation_peak_neg_hz=figs.peak_neg_hz * k,
             deviation_peak_avg_hz=figs.peak_avg_hz * k,
             deviation_rms_hz=figs.rms_hz * k,
-            deviation_hold_hz=self._hold * k,
+            deviation_hold_hz=c["hold"] * k,
             mod_tone_hz=None if tone is None else tone.frequency_hz * k,
-            mod_index=None if tone is None else tone_amp / tone.frequency_hz,
-            cnr_db=cnr_db,
-            contiguous=contiguous,
-            overflow=overflow,
-            **lvl,
+            mod_index=None if tone is None else c["tone_amp"] / tone.frequency_hz,
+            cnr_db=c["cnr_db"],
+            contiguous=c["contiguous"],
+            overflow=c["overflow"],
+            **c["lvl"],
         )
 
     def _deviation(self, dev: np.ndarray) -> np.ndarray:

@@ -30,6 +30,10 @@ DEFAULT_BLOCK_FRAMES = 1 << 16
 # Samples (all channels together) fetched per read: whatever a header claims about its
 # channels, one read never allocates more than 16 MiB of float64.
 MAX_READ_SAMPLES = 1 << 21
+#: whole gates a block of a recording holds, where they fit in MAX_READ_SAMPLES and
+#: BATCH_BYTES (as float64 samples)
+BATCH_GATES = 8
+BATCH_BYTES = 4 << 20
 # Non-finite runs closer than this many samples count as one stretch: each stretch splits
 # the blocks (a flagged block starts at it), so scattered NaNs must not make a block per
 # sample. 16 samples is the engine's shortest gate.
@@ -160,13 +164,18 @@ class _BlockReader:
     def _raw_blocks(self) -> Iterator[np.ndarray]:  # pragma: no cover - abstract
         raise NotImplementedError
 
-    def prefer_block_frames(self, n: int) -> None:
-        """Read blocks of a multiple of n frames (the engine's gate) where the read
-        limits allow: the engine then measures whole gates without copying them."""
+    def prefer_block_frames(self, n: int, gates: int = BATCH_GATES) -> None:
+        """Read blocks of a multiple of n frames (the engine's gate), up to `gates` of
+        them and BATCH_BYTES of samples: the engine then measures whole gates without
+        copying them, several at a time where its processor can (beyond a few MB a
+        batch stops paying: the gates' arrays no longer stay in the caches)."""
         n = int(n)
-        cap = MAX_READ_SAMPLES // max(self.meta.channels, 1)
+        channels = max(self.meta.channels, 1)
+        cap = MAX_READ_SAMPLES // channels
         if 0 < n <= cap:
-            self._read_frames = n * max(1, min(DEFAULT_BLOCK_FRAMES, cap) // n)
+            fit = max(1, BATCH_BYTES // (8 * channels * n))
+            want = max(DEFAULT_BLOCK_FRAMES, n * max(1, min(int(gates), fit)))
+            self._read_frames = n * max(1, min(want, cap) // n)
 
     def _warn(self, text: str) -> None:
         if text not in self.warnings:  # iterating twice must not say it twice
