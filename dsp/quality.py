@@ -612,7 +612,9 @@ def measure_quality(
 
     # Lines: fundamental and harmonics 2..n_harmonics at or below fs/2, then the mains
     # lines (1..6 x 50 and/or 60 Hz) below fs/2 and not within 1/T of a signal line.
-    n_sig = max(1, min(int(n_harmonics), int(math.floor(fs / 2 / f0 * (1 + 1e-12)))))
+    # (a harmonic up to half a bin beyond fs/2 is the line at fs/2 it aliases onto: it
+    # counts as that line, so the figures do not jump as the fundamental crosses fs/2q)
+    n_sig = max(1, min(int(n_harmonics), int(math.floor(fs / 2 * (1 + 1 / n) / f0))))
     mains_hz = (50.0, 60.0) if mains == "auto" else () if mains is None else (float(mains),)
     q_max = max(n_sig, _HUM_HARMONICS)
     n_base = 1 + len(mains_hz)
@@ -649,10 +651,22 @@ def measure_quality(
     # make the Gram matrix ill-conditioned: take the careful solver then. (A few dozen
     # numbers: plain Python is quicker here than numpy's per-call cost.)
     ws = sorted(w.tolist())
-    gap = min(ws[0], math.pi - ws[-1], min(map(operator.sub, ws[1:], ws[:-1]), default=9.0))
+    # A line within half a bin of fs/2 has a sine column that all but vanishes (exactly
+    # at fs/2 it is zero): whether it is fitted would hang on the last digits of the
+    # frequency, and with it the line's power. Such a line is fitted as the cosine it
+    # is there, and sits apart from the others.
+    nyquist = [i for i, x in enumerate(w.tolist()) if abs(math.pi - x) < math.pi / n]
+    edge = math.pi - ws[-1] if not nyquist else 9.0
+    gap = min(ws[0], edge, min(map(operator.sub, ws[1:], ws[:-1]), default=9.0))
     # Lines a bin or more apart are nearly orthogonal (Dirichlet kernel); half a bin
     # still leaves the scaled Gram matrix well conditioned for a plain solve.
-    b = _solve_normal(g, p, gap > np.pi / n)
+    if nyquist:
+        use = np.ones(2 * k + 1, dtype=bool)
+        use[[k + 1 + i for i in nyquist]] = False
+        b = np.zeros(2 * k + 1)
+        b[use] = _solve_normal(g[np.ix_(use, use)], p[use], gap > np.pi / n)
+    else:
+        b = _solve_normal(g, p, gap > np.pi / n)
     bc, bs = b[1 : k + 1], b[k + 1 :]
     dg = np.diag(g)
     energy = bc * bc * dg[1 : k + 1] + 2.0 * bc * bs * g[1 : k + 1, k + 1 :].diagonal()

@@ -894,11 +894,7 @@ def analyze_file(
 
             n = parallel.choose_jobs(jobs, src, settings)
             gate_n = _gate_n(settings, src.meta)
-            min_gates = parallel.min_part_gates(settings)
-            if (
-                n > 1
-                and len(parallel.plan_parts(src.meta.frames, gate_n, n, min_gates=min_gates)) > 1
-            ):
+            if n > 1 and len(parallel.plan_for(src.meta.frames, gate_n, n, settings)) > 1:
                 return parallel.analyze_parts(path, src, settings, source_kw, n, progress=progress)
         return run(src, settings, progress=progress, on_view=on_view)
 

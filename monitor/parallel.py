@@ -60,8 +60,9 @@ from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine,
 PREROLL_S = 2.0
 #: fewest gates a part must hold for a split to be worth it
 MIN_PART_GATES = 60
-#: the same for the FM modes, whose gates cost several times more (a split of two parts
-#: pays from about 90 one-second gates: the parts' start-up and join take some 60 ms)
+#: the FM modes split from twice this many gates (their gates cost several times an
+#: audio gate: a split pays from about 90 one-second gates, the workers' start and the
+#: join taking some 60 ms)
 MIN_FM_PART_GATES = 45
 #: with workers started by spawn or a fork server, the shortest recording split (s)
 MIN_SPAWN_SECONDS = 1800.0
@@ -71,9 +72,6 @@ MAX_JOBS = 8
 #: that another program slows holds up a small part, not half the record (and the
 #: progress bar moves more often)
 PARTS_PER_JOB = 4
-#: the FM modes' parts cost a gate of preroll each, and their gates several times an
-#: audio gate: more, shorter parts keep a slowed worker from holding up the end
-FM_PARTS_PER_JOB = 8
 
 
 def cpu_count() -> int:
@@ -154,6 +152,34 @@ def plan_parts(
     return list(itertools.pairwise([*starts, frames]))
 
 
+def plan_guided_parts(
+    frames: int,
+    gate_n: int,
+    workers: int,
+    *,
+    align: int = SFDR_EVERY_GATES,
+    min_gates: int = MIN_FM_PART_GATES,
+    tail_gates: int = 2 * SFDR_EVERY_GATES,
+) -> list[tuple[int, int]]:
+    """[(start, stop)] frames of parts that shrink towards the end (each about the rest
+    over twice the workers, none under `tail_gates`, starts on multiples of `align`
+    gates; the last part takes the partial gate): the workers get large parts first and
+    finish together on small ones, whatever one of them was slowed by. One part when the
+    record holds fewer than two of `min_gates`."""
+    gates = frames // gate_n
+    if workers < 2 or gates < 2 * min_gates:
+        return [(0, frames)]
+    starts = [0]
+    while True:
+        rest = gates - starts[-1]
+        size = max(tail_gates, -(-rest // (2 * workers)))
+        size = -(-size // align) * align
+        if rest - size < tail_gates:
+            break
+        starts.append(starts[-1] + size)
+    return list(itertools.pairwise([s * gate_n for s in starts] + [frames]))
+
+
 def choose_jobs(jobs: int | None, source, settings: AnalysisSettings) -> int:
     """How many processes to use: `jobs` (None: as many as pay off, up to the CPUs)."""
     if jobs is not None and jobs < 1:
@@ -168,9 +194,13 @@ def choose_jobs(jobs: int | None, source, settings: AnalysisSettings) -> int:
     return jobs
 
 
-def min_part_gates(settings: AnalysisSettings) -> int:
-    """Fewest gates a part of a recording analysed in `settings`' mode must hold."""
-    return MIN_FM_PART_GATES if settings.mode in ("beat", "iq") else MIN_PART_GATES
+def plan_for(frames: int, gate_n: int, jobs: int, settings: AnalysisSettings):
+    """The parts a recording in `settings`' mode is cut into for `jobs` workers: in the
+    FM modes shrinking towards the end (`plan_guided_parts`), in audio mode a few equal
+    ones a worker (`plan_parts`)."""
+    if settings.mode in ("beat", "iq"):
+        return plan_guided_parts(frames, gate_n, jobs)
+    return plan_parts(frames, gate_n, jobs * PARTS_PER_JOB, multiple=jobs)
 
 
 def _part(task) -> tuple[Engine | None, list[tuple[str, type]]]:
@@ -285,13 +315,7 @@ def analyze_parts(
 
     meta = source.meta
     gate_n = _gate_n(settings, meta)
-    parts = plan_parts(
-        meta.frames,
-        gate_n,
-        jobs * (FM_PARTS_PER_JOB if settings.mode in ("beat", "iq") else PARTS_PER_JOB),
-        min_gates=min_part_gates(settings),
-        multiple=jobs,
-    )
+    parts = plan_for(meta.frames, gate_n, jobs, settings)
     warm = Engine(meta, settings, keep_readings=False)
     try:
         first = _gate_samples(source, 0, gate_n)

@@ -217,6 +217,13 @@ class TestBoundaries:
     workers=st.integers(1, 4),
 )
 def test_parts_cover_the_record_on_gate_boundaries(frames, gate_n, jobs, workers):
+    guided = parallel.plan_guided_parts(frames, gate_n, workers)
+    assert guided[0][0] == 0 and guided[-1][1] == frames
+    sizes = [(b - a) // gate_n for a, b in guided]
+    if len(guided) > 1:  # shrinking parts on full quality gates, none tiny
+        assert all(a % (gate_n * parallel.SFDR_EVERY_GATES) == 0 for a, _ in guided)
+        assert min(sizes) >= 16 and sizes[0] >= sizes[-2]
+        assert all(b == c for (_, b), (c, _) in itertools.pairwise(guided))
     parts = parallel.plan_parts(frames, gate_n, jobs, multiple=workers)
     assert parts[0][0] == 0 and parts[-1][1] == frames
     assert 1 <= len(parts) <= jobs
@@ -263,24 +270,36 @@ def _with_noise(path, level, seed, *, subtype=None, edit=None):
     return path
 
 
-FM_GATE = 0.25  # 120 gates in 30 s: parts of 64 and 56 gates (>= MIN_FM_PART_GATES), t = 16 s
+FM_GATE = 0.25  # 120 gates in 30 s, parts from gates 0, 32, 56 (t = 14 s), 72, 88, 104
 # beat: carrier 7 kHz, 1 kHz tone, 2.4 kHz deviation (beta 2.4)
 BEAT = "0.4*sin(2*PI*7000*t+2.4*sin(2*PI*1000*t))"
 # I/Q at 96 kHz: carrier +12 kHz, 800 Hz tone, beta 3 (2.4 kHz deviation)
 IQ = "0.4*cos(2*PI*12000*t+3*sin(2*PI*800*t))|0.4*sin(2*PI*12000*t+3*sin(2*PI*800*t))"
 
 
+# The modulating tone's fit on a part's first gate starts from a fresh search of the gate
+# before (one pass follows it there): both stop within the fit's tolerance, so the tone
+# and the figures measured at its frequency agree to 1e-6 of themselves (the displays
+# show 5 to 9 digits less); everything else to rounding.
+_TONE_FIGURES = {
+    "snr_db", "sinad_db", "thd_percent", "thd_n_percent", "mod_tone_hz", "mod_index",
+    "demod_snr_db", "demod_sinad_db", "demod_thd_percent", "mod_tone_uncertainty_hz",
+    "tone_peak_hz", "carson_bw_hz", "enob_bits", "sfdr_db", "fundamental_deviation_hz",
+    # the Bessel-line fit at the record's mean tone frequency
+    "bessel_mod_index", "residual", "carrier_depth_db", "nearest_null_mod_index",
+}  # fmt: skip
+
+
 def _compare_fm(one, two):
     """The analysis in parts equals the one-process one: every reading and the summary,
     to rounding (the part's filters are settled to rounding, its demodulator is sought
-    onto the same grid); the modulating tone, whose fit on a part's first gate starts
-    from a fresh search of the gate before, to 1e-9 of itself."""
+    onto the same grid); the modulating tone's figures to 1e-6 (see _TONE_FIGURES)."""
     assert len(one.readings) == len(two.readings)
     for a, b in zip(one.readings, two.readings, strict=True):
         for k, v in a.to_dict().items():
             w = getattr(b, k)
             if isinstance(v, float) and math.isfinite(v):
-                tol = 1e-9 * max(abs(v), 1.0)
+                tol = (1e-6 if k in _TONE_FIGURES else 1e-9) * max(abs(v), 1.0)
                 if k in ("carrier_hz", "frequency_hz", "rf_hz", "fundamental_hz"):
                     tol = max(1e-3 * a.carrier_uncertainty_hz, 1e-12 * abs(v))
                 assert w == pytest.approx(v, abs=tol), (k, a.t_s)
@@ -299,7 +318,9 @@ def _compare_fm(one, two):
             for i, (p, q) in enumerate(zip(x, y, strict=True)):
                 same(p, q, f"{path}[{i}]")
         elif isinstance(x, float) and math.isfinite(x):
-            assert y == pytest.approx(x, rel=1e-9, abs=1e-9), path
+            key = path.rsplit(".", 1)[-1].split("[")[0]
+            tol = 1e-6 if key in _TONE_FIGURES or ".bessel." in path else 1e-9
+            assert y == pytest.approx(x, rel=tol, abs=tol), path
         else:
             assert y == x, path
 
@@ -318,10 +339,8 @@ class TestFmParts:
         one = analyze_file(path, settings=settings, jobs=1)
         with open_source(path, mode=settings.mode) as src:
             gate_n = int(round(settings.gate_s * src.meta.fs_hz))
-            plan = parallel.plan_parts(
-                src.meta.frames, gate_n, 2, min_gates=parallel.MIN_FM_PART_GATES
-            )
-            assert [a // gate_n for a, _ in plan] == [0, 64]
+            plan = parallel.plan_for(src.meta.frames, gate_n, 2, settings)
+            assert [a // gate_n for a, _ in plan] == [0, 32, 56, 72, 88, 104]
         two = analyze_file(path, settings=settings, jobs=2)
         _compare_fm(one, two)
         return one, two
@@ -356,29 +375,29 @@ class TestFmParts:
         assert two.extra["fm"]["mod_tone_hz"] == pytest.approx(800.0, abs=1e-3)
 
     def test_tone_that_changes_at_a_part_start(self, fm_dir):
-        # The modulating tone steps from 1 kHz to 1.25 kHz exactly at 16 s (gate 64, the
-        # second part's first) and is absent from 14 s on, so one pass searches afresh
-        # there: the part's start must still give one pass's figures.
+        # The modulating tone steps from 1 kHz to 1.25 kHz exactly at 14 s (gate 56, a
+        # part's first) and is absent from 12 s on, so one pass searches afresh there:
+        # the part's start must still give one pass's figures.
         from monitor.fm_engine import FmSettings
 
         expr = (
-            "0.4*sin(2*PI*7000*t+if(lt(t,14),2.4*sin(2*PI*1000*t),"
-            "if(lt(t,16),0,1.92*sin(2*PI*1250*t))))"
+            "0.4*sin(2*PI*7000*t+if(lt(t,12),2.4*sin(2*PI*1000*t),"
+            "if(lt(t,14),0,1.92*sin(2*PI*1250*t))))"
         )
         path = _with_noise(_ffmpeg(fm_dir, "step", expr, 48000, 30), 3e-3, 3)
         s = AnalysisSettings(mode="beat", gate_s=FM_GATE, fm=FmSettings(if_bandwidth_hz=9000.0))
         _, two = self._both(path, s)
         tones = [r.mod_tone_hz for r in two.readings]
-        assert tones[54] == pytest.approx(1000.0, abs=0.01) and tones[58] is None
-        assert tones[66] == pytest.approx(1250.0, abs=0.01)
+        assert tones[46] == pytest.approx(1000.0, abs=0.01) and tones[50] is None
+        assert tones[58] == pytest.approx(1250.0, abs=0.01)
 
     def test_tone_lost_only_on_the_gate_before_a_part(self, fm_dir):
-        # Modulation off for the half second before the second part (gates 62-63): one
-        # pass follows the tone of gate 61 into gate 64, a part searches afresh; the
-        # parent runs that part itself.
+        # Modulation off for the half second before a part (gates 54-55): one pass
+        # follows the tone of gate 53 into gate 56, a part searches afresh; the parent
+        # runs that part itself.
         from monitor.fm_engine import FmSettings
 
-        expr = "0.4*sin(2*PI*7000*t+if(between(t,15.5,16),0,2.4*sin(2*PI*1000*t)))"
+        expr = "0.4*sin(2*PI*7000*t+if(between(t,13.5,14),0,2.4*sin(2*PI*1000*t)))"
         path = _with_noise(_ffmpeg(fm_dir, "gap", expr, 48000, 30), 3e-3, 4)
         s = AnalysisSettings(mode="beat", gate_s=FM_GATE, fm=FmSettings(if_bandwidth_hz=9000.0))
         self._both(path, s)
