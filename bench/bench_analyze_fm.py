@@ -32,12 +32,8 @@ import tempfile
 import time
 from pathlib import Path
 
-# one BLAS thread: many small products per gate (see monitor/__init__.py)
-for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_var, "1")
-
-import numpy as np  # noqa: E402
-import soundfile as sf  # noqa: E402
+import numpy as np
+import soundfile as sf
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))

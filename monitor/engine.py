@@ -887,13 +887,12 @@ def analyze_file(
         fields_["clock_ppm"] = float(clock_ppm)
     source_kw = dict(mode=settings.mode, channel=channel, mix=mix, swap_iq=swap_iq, meta=fields_)
     with open_source(path, **source_kw) as src:
-        # blocks of whole gates reach the engine without a copy
-        src.prefer_block_frames(_gate_n(settings, src.meta))
+        gate_n = _gate_n(settings, src.meta)
+        src.prefer_block_frames(gate_n)  # blocks of whole gates reach the engine uncopied
         if jobs != 1 and on_view is None:
             from monitor import parallel
 
             n = parallel.choose_jobs(jobs, src, settings)
-            gate_n = _gate_n(settings, src.meta)
             if n > 1 and len(parallel.plan_for(src.meta.frames, gate_n, n, settings)) > 1:
                 return parallel.analyze_parts(path, src, settings, source_kw, n, progress=progress)
         return run(src, settings, progress=progress, on_view=on_view)

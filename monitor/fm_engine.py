@@ -29,11 +29,11 @@ _DEMOD_FIELDS = ("snr_db", "sinad_db", "thd_percent", "thd_n_percent")
 # Post-demodulation output discarded after each (re)start while the filter settles
 # (about eight time constants of its lowest corner).
 SETTLE_S = {"none": 0.005, "300-3000": 0.03, "20-15k": 0.3}
-# Output rate each post-demodulation filter needs (2.2 x its upper edge).
-POST_MIN_RATE = {"300-3000": 6600.0, "20-15k": 33000.0}
 # Upper edge of each post-demodulation filter: the discriminator's droop equaliser is
 # fitted up to there (up to half the IF bandwidth without a filter).
 POST_UPPER_HZ = {"300-3000": 3000.0, "20-15k": 15000.0}
+# Output rate each post-demodulation filter needs (2.2 x its upper edge).
+POST_MIN_RATE = {post: float(round(2.2 * upper)) for post, upper in POST_UPPER_HZ.items()}
 # The demodulator's output rate is at least this times the IF bandwidth: enough for the
 # IF filter's transition band (a fifth of the bandwidth); everything after the
 # discriminator runs at this rate, so it is kept low.
@@ -354,8 +354,9 @@ class FmProcessor:
         self._part_origin: int | None = None  # gate index a part starts at
 
     # -- set-up ------------------------------------------------------------------------
-    def _acquire(self, x: np.ndarray) -> FmSetup:
-        """Find the carrier in the first gate and choose the IF bandwidth and filter."""
+    def first_setup(self, x: np.ndarray) -> FmSetup:
+        """The set-up one pass chooses from its first gate `x`: find the carrier and
+        choose the IF bandwidth and filter (`configure` takes it)."""
         fms = self.fms
         notes: list[str] = []
         if self.kind == "complex" and _iq_health_or_none(x) is None:
@@ -504,7 +505,7 @@ class FmProcessor:
         self._gate_index += 1
         lvl = self._levels.add(x)
         if self._demod is None:
-            self.configure(self._given or self._acquire(x))
+            self.configure(self._given or self.first_setup(x))
             self._restart_run(t_s)
         elif not contiguous:
             self._demod.reset()
@@ -708,10 +709,6 @@ class FmProcessor:
         return self._post_filter(dev, overwrite=overwrite)
 
     # -- a part of a stream (monitor.parallel) -------------------------------------------
-    def first_setup(self, x: np.ndarray) -> FmSetup:
-        """The set-up one pass chooses from its first gate `x`."""
-        return self._acquire(x)
-
     def use_setup(self, setup: FmSetup) -> None:
         """Take `setup` (from `first_setup` on the same first gate) instead of choosing
         again at the first gate: the part of a stream that starts at its beginning."""

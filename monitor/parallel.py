@@ -125,17 +125,11 @@ def why_not_split(source, settings: AnalysisSettings) -> str | None:
 
 
 def plan_parts(
-    frames: int,
-    gate_n: int,
-    jobs: int,
-    *,
-    align: int = SFDR_EVERY_GATES,
-    min_gates: int = MIN_PART_GATES,
-    multiple: int = 1,
+    frames: int, gate_n: int, jobs: int, *, align: int = SFDR_EVERY_GATES, multiple: int = 1
 ) -> list[tuple[int, int]]:
     """[(start, stop)] frames of up to `jobs` parts of whole gates (the last part
     takes the rest, partial gate included); one part when they would be shorter than
-    `min_gates`.
+    MIN_PART_GATES.
 
     Parts start on multiples of `align` gates: the quality meter's full gates (spur
     search, both mains families) fall every SFDR_EVERY_GATES gates, so each part starts
@@ -143,7 +137,7 @@ def plan_parts(
     of workers) the count of parts is a multiple of it where there are enough gates, so
     the workers get equal shares."""
     gates = frames // gate_n
-    jobs = max(1, min(jobs, gates // min_gates))
+    jobs = max(1, min(jobs, gates // MIN_PART_GATES))
     if multiple > 1 and jobs > multiple:
         jobs -= jobs % multiple
     if jobs == 1:
@@ -152,29 +146,23 @@ def plan_parts(
     return list(itertools.pairwise([*starts, frames]))
 
 
-def plan_guided_parts(
-    frames: int,
-    gate_n: int,
-    workers: int,
-    *,
-    align: int = SFDR_EVERY_GATES,
-    min_gates: int = MIN_FM_PART_GATES,
-    tail_gates: int = 2 * SFDR_EVERY_GATES,
-) -> list[tuple[int, int]]:
+def plan_guided_parts(frames: int, gate_n: int, workers: int) -> list[tuple[int, int]]:
     """[(start, stop)] frames of parts that shrink towards the end (each about the rest
-    over twice the workers, none under `tail_gates`, starts on multiples of `align`
-    gates; the last part takes the partial gate): the workers get large parts first and
-    finish together on small ones, whatever one of them was slowed by. One part when the
-    record holds fewer than two of `min_gates`."""
+    over twice the workers, none under two spur-search periods, starts on multiples of
+    SFDR_EVERY_GATES; the last part takes the partial gate): the workers get large parts
+    first and finish together on small ones, whatever one of them was slowed by. One
+    part when the record holds fewer than two of MIN_FM_PART_GATES."""
     gates = frames // gate_n
-    if workers < 2 or gates < 2 * min_gates:
+    if workers < 2 or gates < 2 * MIN_FM_PART_GATES:
         return [(0, frames)]
+    align = SFDR_EVERY_GATES
+    tail = 2 * align
     starts = [0]
     while True:
         rest = gates - starts[-1]
-        size = max(tail_gates, -(-rest // (2 * workers)))
+        size = max(tail, -(-rest // (2 * workers)))
         size = -(-size // align) * align
-        if rest - size < tail_gates:
+        if rest - size < tail:
             break
         starts.append(starts[-1] + size)
     return list(itertools.pairwise([s * gate_n for s in starts] + [frames]))
@@ -345,28 +333,25 @@ def analyze_parts(
         with ProcessPoolExecutor(
             min(jobs, len(parts)), mp_context=_context(), initializer=_worker_init
         ) as pool:
-            for (a, b), (part, said) in zip(parts, pool.map(_part, tasks), strict=True):
-                if part is None:
-                    whole = True  # NaN or inf samples: only a whole read handles them
-                    pool.shutdown(wait=False, cancel_futures=True)
-                    break
-                for text, category in said:
-                    warnings.warn(text, category, stacklevel=2)
-                if engine is None:
-                    engine = part
-                    engine.restore_buffer()
-                elif _joins(engine, part, source, a):
-                    engine.absorb(part)
-                else:
-                    try:
+            try:
+                for (a, b), (part, said) in zip(parts, pool.map(_part, tasks), strict=True):
+                    if part is None:
+                        raise NonFiniteSamples
+                    for text, category in said:
+                        warnings.warn(text, category, stacklevel=2)
+                    if engine is None:
+                        engine = part
+                        engine.restore_buffer()
+                    elif _joins(engine, part, source, a):
+                        engine.absorb(part)
+                    else:
                         _continue(engine, source, a, b, last=b == meta.frames)
-                    except NonFiniteSamples:
-                        whole = True
-                        pool.shutdown(wait=False, cancel_futures=True)
-                        break
-                done = b
-                if progress is not None:
-                    progress(done, meta.frames)
+                    done = b
+                    if progress is not None:
+                        progress(done, meta.frames)
+            except NonFiniteSamples:
+                whole = True  # NaN or inf samples: only a whole read handles them
+                pool.shutdown(wait=False, cancel_futures=True)
     except BrokenProcessPool:
         warnings.warn(
             "a worker process died (out of memory?): the recording was analysed in one "
