@@ -116,6 +116,22 @@ class TestDroopEqualiser:
             float(dm.droop_response(np.array([1234.5]))[0]), abs=1e-15
         )
 
+    @pytest.mark.parametrize("fs", [44100.0, 48000.0, 100000.0, 192000.0, 240000.0, 2.4e6])
+    def test_output_rate_keeps_the_band_flat(self, fs):
+        # A 15 kHz audio band behind a narrow 16 kHz I/Q IF: the output rate the IF and
+        # a 2.2 x 15 kHz floor would allow (fs / 3 = 33.3 kHz at 100 kHz in) puts the band
+        # at 0.45 fs_out, where 11 taps leave 0.7%; the demodulator takes a rate that
+        # keeps it within 0.4 fs_out instead. Reference as above: scipy.signal.freqz of
+        # the taps times numpy.sinc, 20 Hz to 15 kHz within 1.3e-3.
+        dm = FmDemodulator(
+            fs, 20000.0, 16000.0, kind="complex", oversample=1.2, min_fs_out_hz=33000.0,
+            droop_band_hz=15000.0,
+        )  # fmt: skip
+        assert dm.droop_band_hz == 15000.0 <= 0.4 * dm.fs_out_hz
+        f = np.linspace(20.0, 15000.0, 300)
+        _, h = ssig.freqz(dm._eq, worN=f, fs=dm.fs_out_hz)
+        assert np.max(np.abs(np.abs(h) * np.sinc(f / dm.fs_out_hz) - 1.0)) <= 1.3e-3
+
     @pytest.mark.parametrize("tone", [300.0, 1000.0, 2000.0, 2900.0])
     def test_deviation_flat_at_a_low_output_rate(self, tone):
         # At 12 kHz out (1.2 x a 10 kHz IF) a 2.9 kHz tone loses 5% to the first
