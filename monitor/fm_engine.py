@@ -265,18 +265,21 @@ class FmSetup:
 
 class _MedianBins:
     """Median of a stream of values to a set resolution, in bounded memory: counts in
-    bins of `step` (the values are per-gate carrier-to-noise ratios in dB)."""
+    bins of `step` (the values are per-gate carrier-to-noise ratios in dB; +-inf, from
+    a noiseless or an empty gate, counted as such, NaN skipped). Even counts average
+    the two middle values, as numpy.median does."""
 
     def __init__(self, step: float):
         self.step = step
-        self.counts: dict[int, int] = {}
+        self.counts: dict[float, int] = {}
         self.n = 0
 
     def add(self, value: float) -> None:
-        if math.isfinite(value):
-            i = math.floor(value / self.step)
-            self.counts[i] = self.counts.get(i, 0) + 1
-            self.n += 1
+        if math.isnan(value):
+            return
+        i = value if math.isinf(value) else math.floor(value / self.step)
+        self.counts[i] = self.counts.get(i, 0) + 1
+        self.n += 1
 
     def merge(self, other: _MedianBins) -> None:
         for i, c in other.counts.items():
@@ -284,16 +287,20 @@ class _MedianBins:
         self.n += other.n
 
     def median(self) -> float | None:
-        """The middle value's bin centre (None when empty)."""
+        """The middle value's bin centre, or the mean of the two middle ones (None when
+        empty)."""
         if not self.n:
             return None
-        half = 0.5 * self.n
+        ranks = ((self.n - 1) // 2, self.n // 2)  # 0-based ranks of the middle value(s)
+        centres = []
         seen = 0
         for i in sorted(self.counts):
             seen += self.counts[i]
-            if seen >= half:
-                return (i + 0.5) * self.step
-        return None  # pragma: no cover - the loop always returns
+            while len(centres) < 2 and seen > ranks[len(centres)]:
+                centres.append(i if math.isinf(i) else (i + 0.5) * self.step)
+            if len(centres) == 2:
+                break
+        return 0.5 * (centres[0] + centres[1])
 
 
 class FmProcessor:

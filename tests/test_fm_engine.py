@@ -4,16 +4,19 @@ published Bessel zeros and worked RF arithmetic."""
 from __future__ import annotations
 
 import json
+import math
 import re
 
 import numpy as np
 import pytest
 import soundfile as sf
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from monitor.blocks import StreamMeta
 from monitor.cli import main
 from monitor.engine import AnalysisSettings, analyze_file
-from monitor.fm_engine import FmSettings, rf_from_carrier
+from monitor.fm_engine import CNR_MEDIAN_STEP_DB, FmSettings, _MedianBins, rf_from_carrier
 
 # First zero of J0 (Abramowitz & Stegun Table 9.5; DLMF 10.21) [seen cited].
 J0_FIRST_ZERO = 2.404825557695773
@@ -112,6 +115,44 @@ class TestBeat:
         assert fm["mod_index"] == pytest.approx(2.0, rel=0.005)
         assert fm["bessel_mod_index"] == pytest.approx(2.0, rel=0.005)
         assert 25 < fm["cnr_db"] < 40  # measured in the (wider) demodulator band
+        # the summary's CNR is the median of the gates' (numpy.median), to its 0.01 dB bins
+        cnrs = [r.cnr_db for r in a.readings]
+        assert fm["cnr_db"] == pytest.approx(np.median(cnrs), abs=CNR_MEDIAN_STEP_DB / 2)
+
+
+class TestCnrMedian:
+    @settings(max_examples=200, deadline=None)
+    @given(
+        values=st.lists(
+            st.one_of(
+                st.floats(-30.0, 90.0),
+                st.sampled_from([math.inf, -math.inf, math.nan]),
+            ),
+            min_size=0,
+            max_size=60,
+        ),
+        cut=st.integers(0, 60),
+    )
+    def test_against_numpy_median(self, values, cut):
+        # Reference: numpy.median of the values without NaN (numpy.nanmedian), to half a
+        # bin; the bins of two parts merged give the median of the whole stream.
+        whole, first, later = (_MedianBins(CNR_MEDIAN_STEP_DB) for _ in range(3))
+        for i, v in enumerate(values):
+            whole.add(v)
+            (first if i < cut else later).add(v)
+        first.merge(later)
+        assert first.median() == whole.median() or math.isnan(whole.median())
+        kept = [v for v in values if not math.isnan(v)]
+        if not kept:
+            assert whole.median() is None
+            return
+        with np.errstate(invalid="ignore"):  # the median of -inf and +inf is NaN
+            want = float(np.median(kept))
+        got = whole.median()
+        if math.isinf(want) or math.isnan(want):
+            assert got == want or (math.isnan(want) and math.isnan(got))
+        else:
+            assert got == pytest.approx(want, abs=CNR_MEDIAN_STEP_DB / 2 + 1e-9)
 
 
 class TestShortGates:
