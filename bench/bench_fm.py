@@ -27,14 +27,10 @@ from dsp.fm import FmDemodulator, carson_bandwidth_hz, deviation_figures  # noqa
 
 
 def _audio_filter(fs_hz: float, band: str):
-    """Post-demodulation band: dsp.filters when present, else a scipy Butterworth."""
-    try:
-        from dsp.filters import filter_sos
+    """Post-demodulation band, as the engine uses it (dsp.filters)."""
+    from dsp.filters import filter_sos
 
-        return filter_sos(band, fs_hz)
-    except ImportError:
-        edges = {"300-3000": [300.0, 3000.0], "20-15k": [20.0, 15000.0]}[band]
-        return ssig.butter(4, edges, btype="bandpass", fs=fs_hz, output="sos")
+    return filter_sos(band, fs_hz)
 
 
 def fm_signal(fs, seconds, carrier, dev, fm, cnr_db, if_bw, kind, rng):
@@ -146,8 +142,9 @@ def main(argv=None) -> int:
         band="20-15k",
     )
     print(
-        f"\ntargets: >= 2000x at 48 kHz real (got {r48[0]:.0f}x wall, {r48[1]:.0f}x CPU), "
-        f">= 400x at 192 kHz complex (got {r192[0]:.0f}x wall, {r192[1]:.0f}x CPU)"
+        f"\ndemodulator alone (no targets of its own; the FM targets, 500x and 100x, are "
+        f"for the whole analysis: bench_analyze_fm.py): 48 kHz real {r48[0]:.0f}x wall, "
+        f"{r48[1]:.0f}x CPU; 192 kHz complex {r192[0]:.0f}x wall, {r192[1]:.0f}x CPU"
     )
     return 0
 
