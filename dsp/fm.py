@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Literal
 
 import numpy as np
@@ -241,18 +242,18 @@ _EQ_TOLERANCE = 1e-4
 # 1.3e-3 (1e-4 up to a quarter): the demodulator keeps its output rate at least the
 # equaliser's band over this, where the input rate allows.
 _EQ_BAND_MAX = 0.4
-_EQ_CACHE: dict[float, np.ndarray] = {}
 
 
 def _droop_equaliser(x_max: float) -> np.ndarray:
     """Symmetric FIR taps whose response times sinc(x) is 1 over 0 <= x <= x_max (x in
     cycles per output sample): least squares on a fine grid, the fewest taps (3 to 11)
-    that keep the error within 1e-4, else 11."""
-    key = round(float(x_max), 6)
-    taps = _EQ_CACHE.get(key)
-    if taps is not None:
-        return taps
-    x = np.linspace(0.0, key, 400)
+    that keep the error within 1e-4, else 11. (Read-only: the taps are shared.)"""
+    return _droop_taps(round(float(x_max), 6))
+
+
+@lru_cache(maxsize=32)
+def _droop_taps(x_max: float) -> np.ndarray:
+    x = np.linspace(0.0, x_max, 400)
     target = 1.0 / np.sinc(x)
     for half in range(1, _EQ_MAX_HALF + 1):
         # E(x) = c0 + 2 sum c_k cos(2 pi k x) with E(0) = 1 exactly (c0 = 1 - 2 sum c_k):
@@ -265,9 +266,6 @@ def _droop_equaliser(x_max: float) -> np.ndarray:
             break
     taps = np.concatenate((c[:0:-1], c))
     taps.setflags(write=False)
-    if len(_EQ_CACHE) >= 32:
-        _EQ_CACHE.pop(next(iter(_EQ_CACHE)))
-    _EQ_CACHE[key] = taps
     return taps
 
 
@@ -759,7 +757,12 @@ class FmDemodulator:
         return y, steps
 
 
-_NCO_TABLES: dict[tuple[float, int], np.ndarray] = {}
+@lru_cache(maxsize=16)
+def _nco_table(cycles_per_sample: float, table: int) -> np.ndarray:
+    """exp(-j 2 pi c k), k < table: one per demodulator's mixer, kept (read-only)."""
+    full = np.exp(-1j * _TWO_PI * cycles_per_sample * np.arange(table))
+    full.setflags(write=False)
+    return full
 
 
 def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarray:
@@ -773,25 +776,13 @@ def _nco(cycles_per_sample: float, j: np.ndarray, table: int = 1024) -> np.ndarr
     if n == 0:
         return np.zeros(0, dtype=np.complex128)
     c = float(cycles_per_sample)
-    key = (c, table)
-    full = _NCO_TABLES.get(key)
-    if full is None:  # one table per demodulator's mixer, kept
-        if len(_NCO_TABLES) >= 16:
-            _NCO_TABLES.pop(next(iter(_NCO_TABLES)))
-        full = _NCO_TABLES[key] = np.exp(-1j * _TWO_PI * c * np.arange(table))
-        full.setflags(write=False)
-    base = full[: min(table, n)]
+    base = _nco_table(c, table)[: min(table, n)]
     nblocks = -(-n // base.size)
     starts = int(j[0]) + base.size * np.arange(nblocks)
     phase0 = np.mod(c * starts, 1.0)
     heads = np.exp(-1j * _TWO_PI * phase0)
     out = (heads[:, None] * base[None, :]).reshape(-1)
     return out[:n]
-
-
-def _nco_at(cycles_per_sample: float, j: np.ndarray) -> np.ndarray:
-    """exp(-j 2 pi frac(c * j)) for any integers j (a few; exact phase for each)."""
-    return np.exp(-1j * _TWO_PI * np.mod(float(cycles_per_sample) * j, 1.0))
 
 
 @dataclass(frozen=True)
@@ -839,11 +830,6 @@ class DemodBlock:
         j = np.arange(self._v_index + lo, self._v_index + lo + v.size)
         return v * _nco(self._mix_cycles, j)
 
-    def baseband_at(self, idx: np.ndarray) -> np.ndarray:
-        """Complex baseband samples at the given indices of this call."""
-        idx = np.asarray(idx, dtype=np.int64)
-        return self._v[idx] * _nco_at(self._mix_cycles, self._v_index + idx)
-
     def angle_at(self, idx: np.ndarray) -> np.ndarray:
         """Angles of the baseband samples at the given indices, modulo 2 pi (exact)."""
         idx = np.asarray(idx, dtype=np.int64)
@@ -890,17 +876,13 @@ class PhaseLine:
 # phase by at most about 1e-7 rad a step; exact angles every this many samples bring it
 # back, and a straight line between anchors takes out the drift of a steady carrier.
 _PHASE_ANCHOR = 32
-_PHASE_WEIGHTS: dict[int, tuple] = {}
 
 
+@lru_cache(maxsize=16)
 def _phase_weights(n: int) -> tuple:
     """Per-length constants of `phase_line`: anchors, t, and the weights that turn the
-    phase steps and the anchors' corrections into sum(phase) and sum(t * phase)."""
-    w = _PHASE_WEIGHTS.get(n)
-    if w is not None:
-        return w
-    if len(_PHASE_WEIGHTS) >= 16:
-        _PHASE_WEIGHTS.pop(next(iter(_PHASE_WEIGHTS)))
+    phase steps and the anchors' corrections into sum(phase) and sum(t * phase)
+    (read-only arrays: they are shared)."""
     m = _PHASE_ANCHOR
     anchors = np.arange(0, n, m)
     if anchors[-1] != n - 1:
@@ -918,9 +900,9 @@ def _phase_weights(n: int) -> tuple:
     nodes = anchors.size
     h0 = np.bincount(seg, 1.0 - u, nodes) + np.bincount(seg + 1, u, nodes)
     h1 = np.bincount(seg, t * (1.0 - u), nodes) + np.bincount(seg + 1, t * u, nodes)
-    w = (anchors, w0, w1, h0, h1, float(np.dot(t, t)))
-    _PHASE_WEIGHTS[n] = w
-    return w
+    for a in (anchors, w0, w1, h0, h1):
+        a.setflags(write=False)
+    return anchors, w0, w1, h0, h1, float(np.dot(t, t))
 
 
 def phase_line(block: DemodBlock) -> PhaseLine:
@@ -1199,27 +1181,27 @@ class DeviationHistogram:
                 other._counts.copy(),
             )
             return
-        counts, first, width = other._counts, other._first, other.bin_hz
-        ratio = width / self.bin_hz
-        if ratio < 1.0:  # other is finer: bring a copy of it to our width
-            twin = DeviationHistogram(width, max_bins=self.max_bins)
-            twin._counts, twin._first = counts.copy(), first
-            while twin.bin_hz < self.bin_hz:
-                twin._merge()
-            counts, first, width = twin._counts, twin._first, twin.bin_hz
-        while self.bin_hz < width:
+        while self.bin_hz < other.bin_hz:
             self._merge()
+        counts, first, width = self._widened(other)  # other is finer: at our width
         if not math.isclose(self.bin_hz, width, rel_tol=1e-12):
             raise ValueError(f"bin widths {self.bin_hz} and {width} do not share a base width")
         self._cover_bins(first, first + counts.size - 1)
         if self.bin_hz > width:  # covering widened our bins: widen theirs alike
-            twin = DeviationHistogram(width, max_bins=self.max_bins)
-            twin._counts, twin._first = counts.copy(), first
-            while twin.bin_hz < self.bin_hz:
-                twin._merge()
-            counts, first = twin._counts, twin._first
+            counts, first, width = self._widened(other)
         off = first - self._first
         self._counts[off : off + counts.size] += counts
+
+    def _widened(self, other: DeviationHistogram) -> tuple[np.ndarray, int, float]:
+        """other's (counts, first bin, width), its bins merged in pairs up to our width
+        (or as they are when already as wide)."""
+        if other.bin_hz >= self.bin_hz:
+            return other._counts, other._first, other.bin_hz
+        twin = DeviationHistogram(other.bin_hz, max_bins=self.max_bins)
+        twin._counts, twin._first = other._counts.copy(), other._first
+        while twin.bin_hz < self.bin_hz:
+            twin._merge()
+        return twin._counts, twin._first, twin.bin_hz
 
     def exceeded_hz(self, fraction: float) -> float:
         """|deviation| exceeded by the given fraction of samples (e.g. 0.01 for 1%).

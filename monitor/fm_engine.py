@@ -17,6 +17,7 @@ from dataclasses import dataclass, fields, is_dataclass, replace
 import numpy as np
 
 from dsp import fm as dfm
+from dsp import iq as diq
 from dsp import quality as dq
 from dsp import spectrum as dspec
 from dsp import tone as dt
@@ -351,7 +352,7 @@ class FmProcessor:
         self._run_t0 = 0.0
         self._settle = 0
         self._summary_cache = None
-        self._iq = None if self.kind == "real" else _iq_statistics()
+        self._iq = None if self.kind == "real" else diq.IqStatistics()
         self._levels = _levels()
         self.no_tone_gates = 0
         self._iq_dead_gates = 0  # gates where one I/Q arm carried no signal
@@ -525,7 +526,7 @@ class FmProcessor:
             else:
                 self._iq.add(health)
                 if self.fms.iq_correct:
-                    x = _iq_correct(x, health)
+                    x = diq.iq_correct(x, health)
         return {
             "gate_index": gate_index,
             "t_s": t_s,
@@ -753,7 +754,7 @@ class FmProcessor:
             if self.kind == "complex" and self.fms.iq_correct:
                 health = _iq_health_or_none(x)
                 if health is not None:
-                    x = _iq_correct(x, health)
+                    x = diq.iq_correct(x, health)
             blk = demod.process_block(x)
             offset = dfm.phase_line(blk).offset_hz if blk.n_baseband >= 2 else 0.0
             last = self._post(blk.inst_hz - offset)
@@ -1103,30 +1104,12 @@ class _levels:
         return 10 * math.log10(ms) if ms > 0 else -math.inf
 
 
-def _iq_health(z):
-    from dsp import iq
-
-    return iq.iq_health(z)
-
-
 def _iq_health_or_none(z):
     """I/Q health of a gate, or None when one arm carries no signal there."""
     try:
-        return _iq_health(z)
+        return diq.iq_health(z)
     except ValueError:
         return None
-
-
-def _iq_statistics():
-    from dsp import iq
-
-    return iq.IqStatistics()
-
-
-def _iq_correct(z, health):
-    from dsp import iq
-
-    return iq.iq_correct(z, health)
 
 
 def make_processor(meta: StreamMeta, settings) -> FmProcessor:

@@ -305,23 +305,25 @@ class SoundFileSource(_BlockReader):
         self.swap_iq = swap_iq
         self.block_frames = block_frames
         self._read_frames = max(1, min(block_frames, MAX_READ_SAMPLES // max(channels, 1)))
-        # PCM is read as integers and scaled here: the same values libsndfile's own
-        # conversion gives (k / 2^15 for 8- and 16-bit, k / 2^31 for the left-justified
-        # 24- and 32-bit), in half the time, and none of them can be NaN or out of range
-        self._int_read = (
+        # _direct_read: (the dtype to read as, the scale to float64) where libsndfile's own
+        # conversion is bypassed. PCM is read as integers and scaled here: the same values
+        # libsndfile's own conversion gives (k / 2^15 for 8- and 16-bit, k / 2^31 for the
+        # left-justified 24- and 32-bit), in half the time, and none of them can be NaN or
+        # out of range
+        self._direct_read = (
             _INTEGER_READS.get(str(info.subtype))
             if str(info.format) in _INTEGER_CONTAINERS
             else None
         )
-        self._integer_samples = self._int_read is not None
+        self._integer_samples = self._direct_read is not None
         # 32-bit float samples are read as stored and widened here: the same values
         # (float32 to float64 is exact) in a third of the time of libsndfile's conversion
         if (
-            self._int_read is None
+            self._direct_read is None
             and str(info.subtype) == "FLOAT"
             and str(info.format) in _INTEGER_CONTAINERS
         ):
-            self._int_read = ("float32", 1.0)
+            self._direct_read = ("float32", 1.0)
         if channels == 2 and mode != "iq" and _looks_like_iq(self._f):
             self.warnings.append(
                 "the two channels look like I/Q (equal level, 90 degrees apart): "
@@ -366,7 +368,7 @@ class SoundFileSource(_BlockReader):
             f.seek(start)
         except (sf.LibsndfileError, RuntimeError) as exc:
             raise InputError(f"{self.path}: cannot seek to frame {start} ({exc})") from None
-        dtype, scale = self._int_read or ("float64", None)
+        dtype, scale = self._direct_read or ("float64", None)
         mono = self.meta.channels == 1
         left = math.inf if stop is None else stop - start
         while left > 0:
