@@ -285,9 +285,9 @@ def _tables(
     powers (a running product, relative error about q * eps).
     """
     rows = _table_rows(m_len, r_len)
-    if w_base.size == 1 and np.array_equal(sel, np.arange(sel.size)):
-        # one base line and its first harmonics (no hum lines): the columns are the
-        # running powers themselves, built in place
+    if w_base.size == 1:
+        # one base line, so `sel` picks its first harmonics (no hum lines): the columns
+        # are the running powers themselves, built in place
         ang = rows * w_base[0]
         tab = np.empty((rows.size, sel.size), dtype=np.complex128)
         e = tab[:, 0]
@@ -383,6 +383,52 @@ def _gram(w: np.ndarray, n: int) -> np.ndarray:
     return g
 
 
+@lru_cache(maxsize=32)
+def _harmonic_gram_index(k: int) -> tuple[np.ndarray, ...]:
+    """Where the Gram matrix of k harmonics takes its Dirichlet sums: line i is harmonic
+    i + 1, so the pair (i, j) needs the sums at (i - j) w0 and (i + j + 2) w0."""
+    i = np.arange(k)[:, None]
+    j = np.arange(k)[None, :]
+    diff = i - j
+    tabs = (
+        np.arange(2 * k + 1, dtype=np.float64),  # the multiples m of w0
+        np.abs(diff),
+        np.sign(diff).astype(np.float64),  # S(-a) = conj S(a): the imaginary part flips
+        i + j + 2,
+    )
+    for t in tabs:
+        t.setflags(write=False)
+    return tabs
+
+
+def _gram_harmonics(w0: float, k: int, n: int) -> np.ndarray:
+    """`_gram` for the lines w0, 2 w0, .. k w0 (a tone and its harmonics, no hum lines).
+
+    Every entry is a Dirichlet sum at a multiple m w0, m = 0 .. 2k: 2k + 1 of them are
+    evaluated and spread over the matrix, instead of one for every pair of lines."""
+    mult, adiff, sgn, summ = _harmonic_gram_index(k)
+    half = (0.5 * w0) * mult
+    den = np.sin(half)  # sin(a / 2)
+    num = np.sin(n * half)  # sin(n a / 2)
+    exact = np.abs(den) < 1e-13
+    ratio = num / np.where(exact, 1.0, den)
+    ph = (n - 1) * half  # S(a) = exp(j (n - 1) a / 2) sin(n a / 2) / sin(a / 2)
+    sr = np.where(exact, float(n), ratio * np.cos(ph))
+    si = np.where(exact, 0.0, ratio * np.sin(ph))
+    g = np.empty((2 * k + 1, 2 * k + 1))
+    g[0, 0] = n
+    g[0, 1 : k + 1] = g[1 : k + 1, 0] = sr[1 : k + 1]
+    g[0, k + 1 :] = g[k + 1 :, 0] = si[1 : k + 1]
+    sdr = sr[adiff]
+    ssr = sr[summ]
+    g[1 : k + 1, 1 : k + 1] = 0.5 * (sdr + ssr)
+    g[k + 1 :, k + 1 :] = 0.5 * (sdr - ssr)
+    cs = 0.5 * (si[summ] - sgn * si[adiff])  # cs[i, j] = sum cos(w_i n) sin(w_j n)
+    g[1 : k + 1, k + 1 :] = cs
+    g[k + 1 :, 1 : k + 1] = cs.T
+    return g
+
+
 def _solve_normal(g: np.ndarray, p: np.ndarray, well_separated: bool) -> np.ndarray:
     """Least-squares coefficients from the normal equations G b = p.
 
@@ -390,11 +436,11 @@ def _solve_normal(g: np.ndarray, p: np.ndarray, well_separated: bool) -> np.ndar
     closer than half a bin, or a line that near 0 / fs/2) take an eigenvalue-truncated
     pseudo-inverse of the Jacobi-scaled Gram matrix instead of a plain solve.
     """
-    diag = np.diag(g)
+    diag = g.diagonal()
     keep = diag > 1e-9 * g[0, 0]
     if not keep.all():
         b = np.zeros_like(p)
-        b[keep] = _solve_normal(g[np.ix_(keep, keep)], p[keep], False)
+        b[keep] = _solve_normal(g[keep][:, keep], p[keep], False)
         return b
     if well_separated:
         # nearly orthogonal columns of similar norms (n for DC, about n/2 for the
@@ -644,7 +690,8 @@ def measure_quality(
     m_len, r_len = _fold_shape(n)
     inner, outer = _tables(w_base, np.array(cols), q_max, m_len, r_len)
     z = _project(a, inner, outer)
-    g = _gram(w, n)
+    # (the tone and its harmonics alone: their Gram matrix needs 2k + 1 kernel values)
+    g = _gram_harmonics(float(w_base[0]), k, n) if k == n_sig else _gram(w, n)
     p = np.concatenate([[total], z.real, z.imag])
     xx = float(np.dot(a, a))
     # Lines closer than half a bin to each other or to their mirror images at 0 / fs/2
@@ -664,11 +711,11 @@ def measure_quality(
         use = np.ones(2 * k + 1, dtype=bool)
         use[[k + 1 + i for i in nyquist]] = False
         b = np.zeros(2 * k + 1)
-        b[use] = _solve_normal(g[np.ix_(use, use)], p[use], gap > np.pi / n)
+        b[use] = _solve_normal(g[use][:, use], p[use], gap > np.pi / n)
     else:
         b = _solve_normal(g, p, gap > np.pi / n)
     bc, bs = b[1 : k + 1], b[k + 1 :]
-    dg = np.diag(g)
+    dg = g.diagonal()
     energy = bc * bc * dg[1 : k + 1] + 2.0 * bc * bs * g[1 : k + 1, k + 1 :].diagonal()
     energy += bs * bs * dg[k + 1 :]
 

@@ -10,6 +10,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from dsp.quality import (
     LevelFigures,
@@ -356,6 +358,44 @@ class TestHarmonicAtNyquist:
         # practice), within the noise estimate's scatter over 3000 samples
         assert snr[0] == pytest.approx(10 * math.log10(0.5 / 1e-6), abs=0.3)
         assert thd[0] == pytest.approx(1.0, abs=0.01)
+
+
+class TestHarmonicGram:
+    """The fit's Gram matrix for a tone and its harmonics (the FM monitor's case, no hum
+    lines) is built from 2k + 1 Dirichlet sums; it must be the matrix of the columns
+    themselves, [1, cos(q w0 n), sin(q w0 n)], computed directly with numpy."""
+
+    @settings(max_examples=60, deadline=None)
+    @given(
+        n=st.integers(16, 4000),
+        k=st.integers(1, 10),
+        frac=st.floats(1e-3, 1.0),
+    )
+    def test_against_the_columns(self, n, k, frac):
+        from dsp.quality import _gram, _gram_harmonics
+
+        w0 = frac * np.pi / k  # the k-th harmonic at or below fs/2
+        t = np.arange(n)
+        q = np.arange(1, k + 1)
+        cols = np.hstack(
+            [np.ones((n, 1)), np.cos(np.outer(t, q * w0)), np.sin(np.outer(t, q * w0))]
+        )
+        g = _gram_harmonics(w0, k, n)
+        assert np.allclose(g, cols.T @ cols, rtol=0, atol=1e-9 * n)
+        assert np.allclose(g, _gram(q * w0, n), rtol=0, atol=1e-11 * n)
+
+    def test_lines_on_the_bin_grid_and_at_half_the_rate(self):
+        from dsp.quality import _gram_harmonics
+
+        # w0 a whole number of cycles (Dirichlet sums vanish off the diagonal) and the
+        # k-th harmonic exactly at fs/2 (its sine column is zero): numpy's own sums
+        for n, k, w0 in ((1200, 6, 2 * np.pi * 100 / 1200), (3000, 6, np.pi / 6)):
+            t = np.arange(n)
+            q = np.arange(1, k + 1)
+            cols = np.hstack(
+                [np.ones((n, 1)), np.cos(np.outer(t, q * w0)), np.sin(np.outer(t, q * w0))]
+            )
+            assert np.allclose(_gram_harmonics(w0, k, n), cols.T @ cols, rtol=0, atol=1e-9 * n)
 
 
 class TestCombineQuality:
