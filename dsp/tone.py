@@ -155,6 +155,7 @@ class _Layout:
 _TAYLOR = 4
 _REEXPAND = 0.02
 _FACT = np.array([1.0, 1.0, 2.0, 6.0, 24.0, 120.0])
+_POWERS = np.arange(_TAYLOR)
 _LAYOUTS: dict[int, _Layout] = {}
 
 
@@ -206,11 +207,15 @@ class _Gate:
         self.qw = qc[:, k:].T  # (T, R)
         self.w0 = w0
 
-    def _row_sums(self, omega: float):
+    def _coef(self, omega: float) -> np.ndarray:
+        """Taylor coefficients (-j d)^p / p! that move the row sums from w0 to omega
+        (expanding afresh at omega when it is too far from w0)."""
         if self.w0 is None or abs(omega - self.w0) * self.m > _REEXPAND:
             self._expand(omega)
-        d = omega - self.w0
-        coef = (-1j * d) ** np.arange(_TAYLOR) / _FACT[:_TAYLOR]
+        return (-1j * (omega - self.w0)) ** _POWERS / _FACT[:_TAYLOR]
+
+    def _row_sums(self, omega: float):
+        coef = self._coef(omega)
         s0 = coef @ self.q[:_TAYLOR]  # sum_m x e^{-j w m}
         s1 = coef @ self.q[1 : _TAYLOR + 1]  # sum_m x m e^{-j w m}
         return s0, s1, coef
@@ -283,7 +288,7 @@ class _Gate:
         rows = lay.full_rows
         if rows < 8:
             return None
-        _, _, coef = self._row_sums(omega)
+        coef = self._coef(omega)
         yrow = coef[: self.qw.shape[0]] @ self.qw  # sum_m w_m x e^{-j w m}
         u = lay.u[:rows]
         er1 = np.exp(-1j * omega * u)
@@ -297,7 +302,7 @@ class _Gate:
         )
         res = y - model
         # 2*rows real values, 4 fitted parameters
-        power = float(np.sum(res.real**2 + res.imag**2)) / max(1, rows - 2)
+        power = float(np.vdot(res, res).real) / max(1, rows - 2)
         return power / lay.hann_energy
 
 
