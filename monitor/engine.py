@@ -664,6 +664,13 @@ class Engine:
         self.warnings: list[str] = []
         self.processor = self._make_processor()
 
+    def holds_no_samples(self) -> bool:
+        """True when a block's samples are measured before `feed` returns and nothing
+        keeps a reference to them (partial gates are copied): the source may refill the
+        same arrays for the next block (`reuse_buffers`). So far the FM modes' processor;
+        not with a view callback, which is handed the gate itself."""
+        return self.on_view is None and getattr(self.processor, "HOLDS_NO_SAMPLES", False)
+
     def _make_processor(self):
         mode = self.meta.mode
         if mode == "audio":
@@ -847,10 +854,16 @@ def run(
 ) -> Analysis:
     """Run every block of `source` through one engine."""
     engine = Engine(source.meta, settings, on_reading=on_reading, on_view=on_view)
-    for block in source:
-        engine.feed(block)
-        if progress is not None:
-            progress(engine.frames, source.meta.frames)
+    was = getattr(source, "reuse_buffers", False)
+    if engine.holds_no_samples():
+        source.reuse_buffers = True
+    try:
+        for block in source:
+            engine.feed(block)
+            if progress is not None:
+                progress(engine.frames, source.meta.frames)
+    finally:
+        source.reuse_buffers = was
     engine.finish()
     summary = engine.summary(extra_warnings=source.warnings)
     return Analysis(source.meta, engine.readings, summary, engine.extra())

@@ -314,6 +314,10 @@ class FmProcessor:
     apart join into those of one pass (`prepare_part`, `absorb`; monitor.parallel).
     """
 
+    #: a gate's samples are not kept once it is measured (the demodulator copies its
+    #: filter history, the rest keeps figures): see `Engine.holds_no_samples`
+    HOLDS_NO_SAMPLES = True
+
     def __init__(self, meta: StreamMeta, settings):
         self.meta = meta
         self.settings = settings

@@ -212,6 +212,7 @@ def _part(task) -> tuple[Engine | None, list[tuple[str, type]]]:
                 else:
                     _prepare_audio_part(p, src, start, engine.gate_n, gate_index, shared)
                 engine._next = start
+                src.reuse_buffers = engine.holds_no_samples()
                 for block in src.blocks_between(start, stop):
                     engine.feed(block)
                 engine.finish()

@@ -160,6 +160,12 @@ class _BlockReader:
     warnings: list[str]
     #: True when every sample comes from an integer (PCM) file: none can be non-finite
     _integer_samples = False
+    #: True lets a file reader fill the same arrays on every read, so a block's samples
+    #: hold only until the next block is asked for. A consumer that measures each block
+    #: before reading on and copies what it keeps (the engine in the FM modes) sets it:
+    #: a fresh multi-megabyte array a read costs page faults, a few per cent of an FM
+    #: analysis.
+    reuse_buffers = False
 
     def _raw_blocks(self) -> Iterator[np.ndarray]:  # pragma: no cover - abstract
         raise NotImplementedError
@@ -371,16 +377,29 @@ class SoundFileSource(_BlockReader):
         dtype, scale = self._direct_read or ("float64", None)
         mono = self.meta.channels == 1
         left = math.inf if stop is None else stop - start
+        raw = wide = None  # the arrays refilled on every read (reuse_buffers)
+        if self.reuse_buffers:
+            shape = (self._read_frames,) if mono else (self._read_frames, self.meta.channels)
+            raw = np.empty(shape, dtype=dtype)
+            wide = raw if scale is None else np.empty(shape)
         while left > 0:
             want = int(min(self._read_frames, left))
             try:
-                data = f.read(want, dtype=dtype, always_2d=not mono)
+                out = None if raw is None else raw[:want]
+                data = f.read(want, dtype=dtype, always_2d=not mono, out=out)
             except (sf.LibsndfileError, RuntimeError) as exc:
                 raise InputError(f"{self.path}: read failed ({exc})") from None
-            if data.shape[0] == 0:
+            k = data.shape[0]
+            if k == 0:
                 return
-            left -= data.shape[0]
-            if scale == 1.0:
+            left -= k
+            if scale is not None and wide is not None:
+                if scale == 1.0:
+                    np.copyto(wide[:k], data)  # float32 to float64: exact
+                else:
+                    np.multiply(data, scale, out=wide[:k])
+                data = wide[:k]
+            elif scale == 1.0:
                 data = data.astype(np.float64)
             elif scale is not None:
                 data = np.multiply(data, scale, dtype=np.float64)
