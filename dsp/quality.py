@@ -38,6 +38,7 @@ __all__ = [
     "combine_quality",
     "measure_level",
     "measure_quality",
+    "measure_quality_many",
 ]
 
 Mains = Literal["auto", 50, 60] | None
@@ -284,18 +285,11 @@ def _tables(
     Only the q = 1 columns are evaluated with trig functions; the harmonics are their
     powers (a running product, relative error about q * eps).
     """
-    rows = _table_rows(m_len, r_len)
     if w_base.size == 1:
-        # one base line, so `sel` picks its first harmonics (no hum lines): the columns
-        # are the running powers themselves, built in place
-        ang = rows * w_base[0]
-        tab = np.empty((rows.size, sel.size), dtype=np.complex128)
-        e = tab[:, 0]
-        np.cos(ang, out=e.real)
-        np.sin(ang, out=e.imag)
-        for q in range(1, sel.size):
-            np.multiply(tab[:, q - 1], e, out=tab[:, q])
+        # one base line, so `sel` picks its first harmonics (no hum lines)
+        tab = _harmonic_tables(w_base, sel.size, m_len, r_len)[0]
         return tab[:m_len], tab[m_len:]
+    rows = _table_rows(m_len, r_len)
     ang = rows[None, :] * w_base[:, None]  # (B, rows)
     e = (np.cos(ang) + 1j * np.sin(ang)).ravel()
     powers = np.empty((q_max, e.size), dtype=np.complex128)
@@ -304,6 +298,21 @@ def _tables(
         np.multiply(powers[q - 1], e, out=powers[q])
     tab = np.ascontiguousarray(powers.reshape(q_max * w_base.size, -1)[sel].T)  # (rows, K)
     return tab[:m_len], tab[m_len:]
+
+
+def _harmonic_tables(w0: np.ndarray, k: int, m_len: int, r_len: int) -> np.ndarray:
+    """`_tables` of the lines w0, 2 w0, .. k w0 for each base line of `w0` (one gate
+    each): a (gates, rows, k) stack whose columns are the running powers themselves,
+    built in place (each gate's numbers do not depend on the others')."""
+    rows = _table_rows(m_len, r_len)
+    tab = np.empty((w0.size, rows.size, k), dtype=np.complex128)
+    e = tab[:, :, 0]
+    ang = rows[None, :] * w0[:, None]
+    np.cos(ang, out=e.real)
+    np.sin(ang, out=e.imag)
+    for q in range(1, k):
+        np.multiply(tab[:, :, q - 1], e, out=tab[:, :, q])
+    return tab
 
 
 @lru_cache(maxsize=64)
@@ -401,13 +410,15 @@ def _harmonic_gram_index(k: int) -> tuple[np.ndarray, ...]:
     return tabs
 
 
-def _gram_harmonics(w0: float, k: int, n: int) -> np.ndarray:
-    """`_gram` for the lines w0, 2 w0, .. k w0 (a tone and its harmonics, no hum lines).
+def _gram_harmonics(w0, k: int, n: int) -> np.ndarray:
+    """`_gram` for the lines w0, 2 w0, .. k w0 (a tone and its harmonics, no hum lines);
+    for an array of base lines (one a gate), the stack of their matrices.
 
     Every entry is a Dirichlet sum at a multiple m w0, m = 0 .. 2k: 2k + 1 of them are
     evaluated and spread over the matrix, instead of one for every pair of lines."""
+    w = np.asarray(w0, dtype=np.float64)
     mult, adiff, sgn, summ = _harmonic_gram_index(k)
-    half = (0.5 * w0) * mult
+    half = (0.5 * w)[..., None] * mult
     den = np.sin(half)  # sin(a / 2)
     num = np.sin(n * half)  # sin(n a / 2)
     exact = np.abs(den) < 1e-13
@@ -415,17 +426,17 @@ def _gram_harmonics(w0: float, k: int, n: int) -> np.ndarray:
     ph = (n - 1) * half  # S(a) = exp(j (n - 1) a / 2) sin(n a / 2) / sin(a / 2)
     sr = np.where(exact, float(n), ratio * np.cos(ph))
     si = np.where(exact, 0.0, ratio * np.sin(ph))
-    g = np.empty((2 * k + 1, 2 * k + 1))
-    g[0, 0] = n
-    g[0, 1 : k + 1] = g[1 : k + 1, 0] = sr[1 : k + 1]
-    g[0, k + 1 :] = g[k + 1 :, 0] = si[1 : k + 1]
-    sdr = sr[adiff]
-    ssr = sr[summ]
-    g[1 : k + 1, 1 : k + 1] = 0.5 * (sdr + ssr)
-    g[k + 1 :, k + 1 :] = 0.5 * (sdr - ssr)
-    cs = 0.5 * (si[summ] - sgn * si[adiff])  # cs[i, j] = sum cos(w_i n) sin(w_j n)
-    g[1 : k + 1, k + 1 :] = cs
-    g[k + 1 :, 1 : k + 1] = cs.T
+    g = np.empty((*w.shape, 2 * k + 1, 2 * k + 1))
+    g[..., 0, 0] = n
+    g[..., 0, 1 : k + 1] = g[..., 1 : k + 1, 0] = sr[..., 1 : k + 1]
+    g[..., 0, k + 1 :] = g[..., k + 1 :, 0] = si[..., 1 : k + 1]
+    sdr = sr[..., adiff]
+    ssr = sr[..., summ]
+    g[..., 1 : k + 1, 1 : k + 1] = 0.5 * (sdr + ssr)
+    g[..., k + 1 :, k + 1 :] = 0.5 * (sdr - ssr)
+    cs = 0.5 * (si[..., summ] - sgn * si[..., adiff])  # cs[i, j] = sum cos(w_i n) sin(w_j n)
+    g[..., 1 : k + 1, k + 1 :] = cs
+    g[..., k + 1 :, 1 : k + 1] = np.swapaxes(cs, -1, -2)
     return g
 
 
@@ -688,32 +699,101 @@ def measure_quality(
     k = w.size
 
     m_len, r_len = _fold_shape(n)
-    inner, outer = _tables(w_base, np.array(cols), q_max, m_len, r_len)
-    z = _project(a, inner, outer)
-    # (the tone and its harmonics alone: their Gram matrix needs 2k + 1 kernel values)
-    g = _gram_harmonics(float(w_base[0]), k, n) if k == n_sig else _gram(w, n)
-    p = np.concatenate([[total], z.real, z.imag])
     xx = float(np.dot(a, a))
-    # Lines closer than half a bin to each other or to their mirror images at 0 / fs/2
-    # make the Gram matrix ill-conditioned: take the careful solver then. (A few dozen
-    # numbers: plain Python is quicker here than numpy's per-call cost.)
+    if k == n_sig:  # the tone and its harmonics alone: the same path as a batch of gates
+        nyquist = _nyquist_lines(w, n)
+        (b,), (g,), (p,), ((inner, outer),) = _fit_harmonic_stack(
+            [a], [total], w_base[:1], k, n, nyquist, [_well_separated(w, n, nyquist)]
+        )
+    else:
+        inner, outer = _tables(w_base, np.array(cols), q_max, m_len, r_len)
+        z = _project(a, inner, outer)
+        g = _gram(w, n)
+        p = np.concatenate([[total], z.real, z.imag])
+        nyquist = _nyquist_lines(w, n)
+        sep = _well_separated(w, n, nyquist)
+        if nyquist:
+            use = np.ones(2 * k + 1, dtype=bool)
+            use[[k + 1 + i for i in nyquist]] = False
+            b = np.zeros(2 * k + 1)
+            b[use] = _solve_normal(g[use][:, use], p[use], sep)
+        else:
+            b = _solve_normal(g, p, sep)
+    return _figures_from_fit(
+        a, xx, b, g, p, inner, outer, fs=fs, f0=f0, n_sig=n_sig, mains_hz=mains_hz,
+        member=member, sfdr=sfdr,
+    )  # fmt: skip
+
+
+def _nyquist_lines(w: np.ndarray, n: int) -> list[int]:
+    """Lines within half a bin of fs/2. Such a line has a sine column that all but
+    vanishes (exactly at fs/2 it is zero): whether it is fitted would hang on the last
+    digits of the frequency, and with it the line's power. It is fitted as the cosine
+    it is there, and sits apart from the others."""
+    return [i for i, x in enumerate(w.tolist()) if abs(math.pi - x) < math.pi / n]
+
+
+def _well_separated(w: np.ndarray, n: int, nyquist: list[int]) -> bool:
+    """Whether the lines are half a bin or more apart from each other and from their
+    mirror images at 0 / fs/2: nearly orthogonal columns (Dirichlet kernel), whose Gram
+    matrix a plain solve handles; closer lines make it ill-conditioned and take the
+    careful solver. (A few dozen numbers: plain Python is quicker here than numpy.)"""
     ws = sorted(w.tolist())
-    # A line within half a bin of fs/2 has a sine column that all but vanishes (exactly
-    # at fs/2 it is zero): whether it is fitted would hang on the last digits of the
-    # frequency, and with it the line's power. Such a line is fitted as the cosine it
-    # is there, and sits apart from the others.
-    nyquist = [i for i, x in enumerate(w.tolist()) if abs(math.pi - x) < math.pi / n]
     edge = math.pi - ws[-1] if not nyquist else 9.0
     gap = min(ws[0], edge, min(map(operator.sub, ws[1:], ws[:-1]), default=9.0))
-    # Lines a bin or more apart are nearly orthogonal (Dirichlet kernel); half a bin
-    # still leaves the scaled Gram matrix well conditioned for a plain solve.
+    return gap > np.pi / n
+
+
+def _fit_harmonic_stack(arrs, totals, w0, k: int, n: int, nyquist: list[int], separated):
+    """The joint fit of DC and the lines w0, 2 w0, .. k w0 of each gate (arrays of n
+    samples, the same lines near fs/2), with the tables, Gram matrices and normal
+    equations of all the gates in stacks: each gate's numbers are those it gets alone.
+
+    Returns (b, g, p, tables): per gate the coefficients [DC, cos.., sin..], the Gram
+    matrix, the projections and the (inner, outer) tables.
+    """
+    m_len, r_len = _fold_shape(n)
+    tab = _harmonic_tables(w0, k, m_len, r_len)
+    tables = [(t[:m_len], t[m_len:]) for t in tab]
+    g = _gram_harmonics(w0, k, n)
+    p = np.empty((len(arrs), 2 * k + 1))
+    for i, (a, (inner, outer)) in enumerate(zip(arrs, tables, strict=True)):
+        z = _project(a, inner, outer)
+        p[i, 0] = totals[i]
+        p[i, 1 : k + 1] = z.real
+        p[i, k + 1 :] = z.imag
+    use = np.ones(2 * k + 1, dtype=bool)
+    use[[k + 1 + i for i in nyquist]] = False
+    gu = g[:, use][:, :, use] if nyquist else g
+    pu = p[:, use] if nyquist else p
+    # columns that vanish (sin at 0) or lines too close take the careful solver, gate by
+    # gate; the rest one stacked solve (LAPACK's gesv on each matrix, as alone)
+    diag = np.diagonal(gu, axis1=1, axis2=2)
+    plain = (diag > 1e-9 * gu[:, :1, 0]).all(axis=1) & np.asarray(separated, dtype=bool)
+    bu = np.empty_like(pu)
+    idx = np.flatnonzero(plain)
+    if idx.size:
+        try:
+            bu[idx] = np.linalg.solve(gu[idx], pu[idx][:, :, None])[:, :, 0]
+        except np.linalg.LinAlgError:
+            plain[:] = False
+    for i in np.flatnonzero(~plain):
+        bu[i] = _solve_normal(gu[i], pu[i], bool(separated[i]))
     if nyquist:
-        use = np.ones(2 * k + 1, dtype=bool)
-        use[[k + 1 + i for i in nyquist]] = False
-        b = np.zeros(2 * k + 1)
-        b[use] = _solve_normal(g[use][:, use], p[use], gap > np.pi / n)
+        b = np.zeros_like(p)
+        b[:, use] = bu
     else:
-        b = _solve_normal(g, p, gap > np.pi / n)
+        b = bu
+    return b, g, p, tables
+
+
+def _figures_from_fit(
+    a, xx, b, g, p, inner, outer, *, fs, f0, n_sig, mains_hz, member, sfdr
+) -> QualityFigures:
+    """The figures of one gate from its joint fit (see `measure_quality`)."""
+    n = a.size
+    total = float(p[0])
+    k = (b.size - 1) // 2
     bc, bs = b[1 : k + 1], b[k + 1 :]
     dg = g.diagonal()
     energy = bc * bc * dg[1 : k + 1] + 2.0 * bc * bs * g[1 : k + 1, k + 1 :].diagonal()
@@ -750,13 +830,14 @@ def measure_quality(
         spur_power = 0.0
         warnings.warn(
             f"x has only {n} samples: too short to search for spurs; sfdr_db is a floor",
-            stacklevel=2,
+            stacklevel=3,
         )
     if energy[0] <= 0.0 or xx <= float(b[0]) ** 2 * n * (1.0 + 1e-12):
         warnings.warn(
             "x holds no AC signal (constant or silent): the ratio figures are meaningless",
-            stacklevel=2,
+            stacklevel=3,
         )
+    del total
     return _figures_from_powers(
         fundamental_hz=f0,
         fs_hz=fs,
@@ -772,6 +853,75 @@ def measure_quality(
         dc_power=float(b[0]) ** 2,
         total_power=xx / n,
     )
+
+
+def measure_quality_many(
+    xs: Sequence[np.ndarray],
+    fs_hz: float,
+    fundamentals_hz: Sequence[float],
+    *,
+    sfdr: Sequence[bool],
+    n_harmonics: int = 10,
+) -> list[QualityFigures]:
+    """`measure_quality` of several gates, without mains lines: figures[i] equals
+    ``measure_quality(xs[i], fs_hz, fundamental_hz=fundamentals_hz[i], mains=None,
+    sfdr=sfdr[i], n_harmonics=n_harmonics)`` bit for bit.
+
+    Gates of one length whose fits take the same shape share the small linear algebra
+    (tables, Gram matrices, normal equations), done in stacks: a monitor measuring gates
+    in batches pays numpy's per-call cost once a batch instead of once a gate.
+
+    Raises
+    ------
+    ValueError, TypeError
+        As `measure_quality`, for the first gate at fault; or if the sequences differ in
+        length.
+    """
+    xs = list(xs)
+    f0s = [float(f) for f in fundamentals_hz]
+    full = [bool(s) for s in sfdr]
+    if not len(xs) == len(f0s) == len(full):
+        raise ValueError(
+            f"xs, fundamentals_hz and sfdr differ in length ({len(xs)}, {len(f0s)}, {len(full)})"
+        )
+    fs = _check_positive("fs_hz", fs_hz)
+    if isinstance(n_harmonics, bool) or not isinstance(n_harmonics, (int, np.integer)):
+        raise TypeError(f"n_harmonics must be an int, got {type(n_harmonics).__name__}")
+    if n_harmonics < 1:
+        raise ValueError(f"n_harmonics={n_harmonics} must be >= 1")
+    gates = []
+    groups: dict[tuple, list[int]] = {}
+    for i, (x, f) in enumerate(zip(xs, f0s, strict=True)):
+        f0 = _check_positive("fundamental_hz", f)
+        if not f0 < fs / 2:
+            raise ValueError(f"fundamental_hz={f} must be in (0, fs_hz/2) = (0, {fs / 2:g})")
+        a, total = _real_block_and_sum(x)
+        n = a.size
+        n_sig = max(1, min(int(n_harmonics), int(math.floor(fs / 2 * (1 + 1 / n) / f0))))
+        w = 2.0 * np.pi * np.array([f0 * q for q in range(1, n_sig + 1)]) / fs
+        nyquist = _nyquist_lines(w, n)
+        gates.append((a, total, f0, n_sig, _well_separated(w, n, nyquist)))
+        groups.setdefault((n, n_sig, tuple(nyquist)), []).append(i)
+    out: list[QualityFigures | None] = [None] * len(xs)
+    for (n, k, nyquist), members in groups.items():
+        w0 = 2.0 * np.pi * np.array([gates[i][2] for i in members]) / fs
+        b, g, p, tables = _fit_harmonic_stack(
+            [gates[i][0] for i in members],
+            [gates[i][1] for i in members],
+            w0,
+            k,
+            n,
+            list(nyquist),
+            [gates[i][4] for i in members],
+        )
+        for j, i in enumerate(members):
+            a, _, f0, n_sig, _ = gates[i]
+            inner, outer = tables[j]
+            out[i] = _figures_from_fit(
+                a, float(np.dot(a, a)), b[j], g[j], p[j], inner, outer, fs=fs, f0=f0,
+                n_sig=n_sig, mains_hz=(), member={}, sfdr=full[i],
+            )  # fmt: skip
+    return out  # type: ignore[return-value]
 
 
 def combine_quality(figures: Sequence[QualityFigures]) -> QualityFigures:

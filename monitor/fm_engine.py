@@ -508,8 +508,7 @@ class FmProcessor:
             self._measure_carrier_and_deviation(c)
         for c in ctx:
             self._measure_tone(c)
-        for c in ctx:
-            self._measure_quality(c)
+        self._measure_quality(ctx)
         return [self._reading(c) for c in ctx]
 
     def _demodulate(self, x: np.ndarray, t_s: float, contiguous: bool, overflow: bool) -> dict:
@@ -605,23 +604,38 @@ class FmProcessor:
         self._tone_amp_sum += amp
         self._tone_n += 1
 
-    def _measure_quality(self, c: dict) -> None:
-        full = self._schedule.next_gate(c["gate_index"])
-        tone = c["tone"]
-        if tone is None:
-            self.no_tone_gates += 1
-            return
-        fs_out = c["block"].fs_out_hz
-        if 0 < tone.frequency_hz < fs_out / 2:
-            # the spur search (the dearest part) on a sample of gates, as in audio mode
-            # (engine.QualitySchedule); no hum fit: hum on the modulation is noise here
-            # (SNR counts it so either way) and has no figure of its own
-            qual = dq.measure_quality(
-                c["dev_f"], fs_out, fundamental_hz=tone.frequency_hz, sfdr=full, mains=None
+    def _measure_quality(self, ctx: list[dict]) -> None:
+        """The quality meter on the demodulated audio of each gate with a tone, the
+        gates of a batch together (`dsp.quality.measure_quality_many`: the figures of
+        one gate at a time, bit for bit)."""
+        todo: dict[float, list[tuple[dict, bool]]] = {}
+        for c in ctx:
+            full = self._schedule.next_gate(c["gate_index"])
+            tone = c["tone"]
+            if tone is None:
+                self.no_tone_gates += 1
+                continue
+            fs_out = c["block"].fs_out_hz
+            if 0 < tone.frequency_hz < fs_out / 2:
+                # the spur search (the dearest part) on a sample of gates, as in audio
+                # mode (engine.QualitySchedule); no hum fit: hum on the modulation is
+                # noise here (SNR counts it so either way) and has no figure of its own.
+                # Without mains lines the schedule does not look at the figures, so it
+                # runs ahead of them.
+                self._schedule.measured(None, full)
+                todo.setdefault(fs_out, []).append((c, full))
+        for fs_out, gates in todo.items():
+            figs = dq.measure_quality_many(
+                [c["dev_f"] for c, _ in gates],
+                fs_out,
+                [c["tone"].frequency_hz for c, _ in gates],
+                sfdr=[full for _, full in gates],
             )
-            self._schedule.measured(qual, full)
-            self._quality.add(qual)
-            c["qual"] = qual
+            for (c, _), qual in zip(gates, figs, strict=True):
+                c["qual"] = qual
+        for c in ctx:  # the summary's sums in gate order
+            if c.get("qual") is not None:
+                self._quality.add(c["qual"])
 
     def _reading(self, c: dict):
         from monitor.engine import Reading, quality_fields
