@@ -877,18 +877,18 @@ def measure_quality_many(
         As `measure_quality`, for the first gate at fault; or if the sequences differ in
         length.
     """
-    xs = list(xs)
-    f0s = [float(f) for f in fundamentals_hz]
-    full = [bool(s) for s in sfdr]
-    if not len(xs) == len(f0s) == len(full):
-        raise ValueError(
-            f"xs, fundamentals_hz and sfdr differ in length ({len(xs)}, {len(f0s)}, {len(full)})"
-        )
     fs = _check_positive("fs_hz", fs_hz)
     if isinstance(n_harmonics, bool) or not isinstance(n_harmonics, (int, np.integer)):
         raise TypeError(f"n_harmonics must be an int, got {type(n_harmonics).__name__}")
     if n_harmonics < 1:
         raise ValueError(f"n_harmonics={n_harmonics} must be >= 1")
+    if np.ndim(sfdr) != 1 or np.ndim(fundamentals_hz) != 1:
+        raise TypeError("fundamentals_hz and sfdr must be sequences, one entry a gate")
+    xs, f0s, full = list(xs), list(fundamentals_hz), [bool(s) for s in sfdr]
+    if not len(xs) == len(f0s) == len(full):
+        raise ValueError(
+            f"xs, fundamentals_hz and sfdr differ in length ({len(xs)}, {len(f0s)}, {len(full)})"
+        )
     gates = []
     groups: dict[tuple, list[int]] = {}
     for i, (x, f) in enumerate(zip(xs, f0s, strict=True)):
@@ -902,7 +902,7 @@ def measure_quality_many(
         nyquist = _nyquist_lines(w, n)
         gates.append((a, total, f0, n_sig, _well_separated(w, n, nyquist)))
         groups.setdefault((n, n_sig, tuple(nyquist)), []).append(i)
-    out: list[QualityFigures | None] = [None] * len(xs)
+    fits: list = [None] * len(xs)
     for (n, k, nyquist), members in groups.items():
         w0 = 2.0 * np.pi * np.array([gates[i][2] for i in members]) / fs
         b, g, p, tables = _fit_harmonic_stack(
@@ -915,13 +915,17 @@ def measure_quality_many(
             [gates[i][4] for i in members],
         )
         for j, i in enumerate(members):
-            a, _, f0, n_sig, _ = gates[i]
-            inner, outer = tables[j]
-            out[i] = _figures_from_fit(
-                a, float(np.dot(a, a)), b[j], g[j], p[j], inner, outer, fs=fs, f0=f0,
-                n_sig=n_sig, mains_hz=(), member={}, sfdr=full[i],
-            )  # fmt: skip
-    return out  # type: ignore[return-value]
+            fits[i] = (b[j], g[j], p[j], *tables[j])
+    # the figures (and their warnings) in gate order, as gate by gate
+    out = []
+    for (a, _, f0, n_sig, _), (b, g, p, inner, outer), s in zip(gates, fits, full, strict=True):
+        out.append(
+            _figures_from_fit(
+                a, float(np.dot(a, a)), b, g, p, inner, outer, fs=fs, f0=f0, n_sig=n_sig,
+                mains_hz=(), member={}, sfdr=s,
+            )
+        )  # fmt: skip
+    return out
 
 
 def combine_quality(figures: Sequence[QualityFigures]) -> QualityFigures:

@@ -302,7 +302,7 @@ class _Gate:
         )
         res = y - model
         # 2*rows real values, 4 fitted parameters
-        power = float(np.vdot(res, res).real) / max(1, rows - 2)
+        power = float(np.sum(res.real**2 + res.imag**2)) / max(1, rows - 2)
         return power / lay.hann_energy
 
 

@@ -445,6 +445,26 @@ class TestMeasureQualityMany:
         with pytest.raises(ValueError, match="non-finite"):
             measure_quality_many([np.full(100, np.nan)], 8000.0, [1000.0], sfdr=[False])
         assert measure_quality_many([], 8000.0, [], sfdr=[]) == []
+        # the checks of measure_quality, in its order: the rate first, then each gate
+        with pytest.raises(TypeError, match="fundamental_hz"):
+            measure_quality_many([x], 8000.0, [True], sfdr=[False])
+        with pytest.raises(ValueError, match="fs_hz"):
+            measure_quality_many([x], -1.0, ["abc"], sfdr=[False])
+        with pytest.raises(TypeError, match="sequences"):
+            measure_quality_many([x], 8000.0, [1000.0], sfdr=True)
+
+    def test_warnings_in_gate_order(self):
+        # silence, a record too short for the spur search, a constant: the same warnings
+        # in the same order as gate by gate
+        xs = [np.zeros(100), np.sin(np.arange(3.0)), np.ones(100)]
+        f0s, full = [100.0, 1000.0, 100.0], [False, True, False]
+        with pytest.warns(UserWarning) as many:
+            measure_quality_many(xs, 8000.0, f0s, sfdr=full)
+        with pytest.warns(UserWarning) as one:
+            for x, f0, s in zip(xs, f0s, full, strict=True):
+                measure_quality(x, 8000.0, fundamental_hz=f0, mains=None, sfdr=s)
+        assert [str(w.message) for w in many] == [str(w.message) for w in one]
+        assert len(many) == 3
 
 
 class TestCombineQuality:
