@@ -639,11 +639,12 @@ class FmDemodulator:
         b = self.process_block(samples)
         return b.inst_hz, b.baseband()
 
-    def process_block(self, samples) -> DemodBlock:
+    def process_block(self, samples, *, check_finite: bool = True) -> DemodBlock:
         """Like `process`, returning a `DemodBlock`: the instantaneous frequency, the
         discriminator's raw (unequalised) phase steps and the baseband, which it
-        computes only where asked (`DemodBlock.baseband`)."""
-        v = self._advance(samples, fresh=True)
+        computes only where asked (`DemodBlock.baseband`). A caller that has checked the
+        samples for NaN and inf already can skip the check (``check_finite=False``)."""
+        v = self._advance(samples, fresh=True, check_finite=check_finite)
         vstart = self._vstart
         inst, step = self._discriminate(v, keep_raw=True)
         return DemodBlock(
@@ -657,10 +658,10 @@ class FmDemodulator:
         )
 
     # ----------------------------------------------------------------------------------
-    def _advance(self, samples, fresh: bool = False) -> np.ndarray:
+    def _advance(self, samples, fresh: bool = False, check_finite: bool = True) -> np.ndarray:
         """Band-pass outputs of the next input (a reused buffer; a new array if fresh)."""
         x = _as_1d("samples", samples, self.kind)
-        if x.size and not _finite_energy(x):
+        if check_finite and x.size and not _finite_energy(x):
             raise ValueError("samples must be finite (found NaN or inf)")
         d = self.decimation
         hist = self._hist

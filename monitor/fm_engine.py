@@ -537,7 +537,8 @@ class FmProcessor:
             "contiguous": contiguous,
             "overflow": overflow,
             "lvl": lvl,
-            "block": self._demod.process_block(x),
+            # (the level meter above refused NaN and inf: its sum is finite)
+            "block": self._demod.process_block(x, check_finite=False),
             "dev_f": None,
             "tone": None,
             "qual": None,

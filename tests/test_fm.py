@@ -307,6 +307,16 @@ class TestFmDemodulator:
             FmDemodulator(FS, 9000.0, 8000.0).process(np.ones((10, 2)))
         with pytest.raises(ValueError, match="finite"):
             FmDemodulator(FS, 9000.0, 8000.0).process(np.array([1.0, np.nan]))
+        with pytest.raises(ValueError, match="finite"):
+            FmDemodulator(FS, 9000.0, 8000.0).process_block(np.array([1.0, np.inf]))
+
+    def test_unchecked_block_equals_checked(self):
+        # a caller that checked its samples skips the pass: the same block, bit for bit
+        x = np.cos(2 * np.pi * 9000.0 * np.arange(20000) / FS + np.sin(np.arange(20000) / 9))
+        a = FmDemodulator(FS, 9000.0, 8000.0).process_block(x)
+        b = FmDemodulator(FS, 9000.0, 8000.0).process_block(x, check_finite=False)
+        assert np.array_equal(a.inst_hz, b.inst_hz) and np.array_equal(a.step_hz, b.step_hz)
+        assert np.array_equal(a.baseband(), b.baseband())
         with pytest.raises(ValueError, match=r"oversample=0\.5"):
             FmDemodulator(FS, 9000.0, 8000.0, oversample=0.5)
         with pytest.raises(ValueError, match="stopband_db=10"):
