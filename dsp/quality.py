@@ -53,6 +53,10 @@ _LOBE_BINS = 8
 _SPECTRUM_MAX = 16384
 #: Number of mains-hum harmonics fitted (1 .. _HUM_HARMONICS times 50 or 60 Hz).
 _HUM_HARMONICS = 6
+#: Fewest cycles of the fundamental a record must hold for the figures to be trusted:
+#: below about two the fit cannot separate the tone from DC and its harmonics (its
+#: columns are nearly collinear) and splits the power among them arbitrarily.
+_MIN_CYCLES = 2.0
 #: Dynamic range floor of the ratios: powers below this fraction of the total power are
 #: treated as this fraction (the arithmetic cannot resolve less), so no figure is inf/NaN.
 _FLOOR_REL = 1e-20
@@ -829,12 +833,19 @@ def _figures_from_fit(
     if spur_power < 0.0:
         spur_power = 0.0
         warnings.warn(
-            f"x has only {n} samples: too short to search for spurs; sfdr_db is a floor",
+            f"the record has only {n} samples: too short to search for spurs; SFDR is a floor",
             stacklevel=3,
         )
     if energy[0] <= 0.0 or xx <= float(b[0]) ** 2 * n * (1.0 + 1e-12):
         warnings.warn(
-            "x holds no AC signal (constant or silent): the ratio figures are meaningless",
+            "the record holds no AC signal (constant or silent): the ratio figures are meaningless",
+            stacklevel=3,
+        )
+    cycles = f0 * n / fs
+    if cycles < _MIN_CYCLES:
+        warnings.warn(
+            f"the record holds only {cycles:.3g} cycles of the tone: too few to tell it from "
+            "DC and its harmonics, so the figures are unreliable (a longer record or gate helps)",
             stacklevel=3,
         )
     del total

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 from collections.abc import Sequence
 
 from monitor import __version__
@@ -68,12 +69,25 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """A measurement's caveat (a record too short, a silent input) as one line of ours,
+    not Python's warning format with its source line."""
+    print(f"swingmeter: warning: {message}", file=file or sys.stderr)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
         parser.print_help(sys.stderr)
         return 2
+    with warnings.catch_warnings():  # each caveat once, as ours (restored on return)
+        warnings.simplefilter("once")
+        warnings.showwarning = _show_warning
+        return _run(args)
+
+
+def _run(args) -> int:
     try:
         return int(args._run(args) or 0)
     except SwingmeterError as exc:

@@ -66,6 +66,16 @@ class TestAnalyze:
         assert d["tone"]["frequency_hz"] == pytest.approx(1234.5, abs=1e-4)
         assert "readings" not in d
 
+    def test_too_few_cycles_in_a_gate_is_said_once_in_our_words(self, tmp_path, capsys):
+        # 1.5 Hz in 1 s gates: the quality fit cannot separate the tone from DC; the
+        # caveat comes once, as a line of ours, not as Python's warning with source
+        p = write_tone(tmp_path / "slow.wav", f=1.5, dur=5.0)
+        rc = main(["analyze", str(p)])
+        err = capsys.readouterr().err
+        assert rc == 0
+        assert err.count("swingmeter: warning: the record holds only 1.5 cycles") == 1
+        assert "UserWarning" not in err and ".py:" not in err
+
     def test_readings(self, tmp_path, capsys):
         p = write_tone(tmp_path / "a.wav")
         d = run_json(capsys, "analyze", str(p), "--json", "--readings", "--gate", "0.5")

@@ -6,6 +6,7 @@ import math
 import os
 import shutil
 import subprocess
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -274,6 +275,7 @@ class TestMeasureQuality:
             (100.2, 4801, 48000.0),  # hum lines next to signal lines
         ],
     )
+    @pytest.mark.filterwarnings("ignore:the record holds only")  # a 31 Hz case fits 1.29 cycles
     def test_agrees_with_lapack_lstsq(self, f0, n, fs):
         # Reference: the same IEEE 1057 least-squares model solved on the explicit design
         # matrix by numpy.linalg.lstsq (LAPACK). Relative 1e-6 on each power.
@@ -312,6 +314,24 @@ class TestMeasureQuality:
             assert not any(isinstance(v, float) and math.isnan(v) for v in numbers)
             if not x.any():
                 assert q.fundamental_dbfs == -math.inf
+
+    def test_too_few_cycles_warn(self):
+        # under two cycles of the tone the fit cannot separate it from DC and its
+        # harmonics (a unit-amplitude sine's power, 0.5, reads far off there): say so;
+        # from two cycles on the figures are those of the sine (numpy-generated)
+        n = 1000
+        for cycles, warns in ((0.6, True), (1.5, True), (2.0, False), (5.5, False)):
+            f0 = cycles * FS / n
+            x = tone(f0, n, phase=0.3)
+            with warnings.catch_warnings(record=True) as seen:
+                warnings.simplefilter("always")
+                q = measure_quality(x, FS, fundamental_hz=f0, mains=None, sfdr=False)
+            said = any("cycles of the tone" in str(w.message) for w in seen)
+            assert said == warns, cycles
+            if not warns:
+                assert q.fundamental_power == pytest.approx(0.5, rel=1e-6)
+        with pytest.warns(UserWarning, match="cycles of the tone"):
+            measure_quality_many([tone(60.0, 1000)], FS, [60.0], sfdr=[False])
 
     def test_raises(self):
         x = tone(1000, 480)
@@ -411,6 +431,7 @@ def _same_figures(a: QualityFigures, b: QualityFigures) -> bool:
 class TestMeasureQualityMany:
     """Gates measured together give each gate's own figures, bit for bit."""
 
+    @pytest.mark.filterwarnings("ignore:the record holds only")  # the 1.5 Hz gate, on purpose
     def test_batch_equals_gate_by_gate(self):
         fs = 12000.0
         rng = np.random.default_rng(8)
@@ -464,7 +485,7 @@ class TestMeasureQualityMany:
             for x, f0, s in zip(xs, f0s, full, strict=True):
                 measure_quality(x, 8000.0, fundamental_hz=f0, mains=None, sfdr=s)
         assert [str(w.message) for w in many] == [str(w.message) for w in one]
-        assert len(many) == 3
+        assert len(many) >= 3
 
 
 class TestCombineQuality:
