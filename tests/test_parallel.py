@@ -270,7 +270,7 @@ def _with_noise(path, level, seed, *, subtype=None, edit=None):
     return path
 
 
-FM_GATE = 0.25  # 120 gates in 30 s, parts from gates 0, 32, 56 (t = 14 s), 72, 88, 104
+FM_GATE = 0.25  # 120 gates in 30 s, parts from gates 0, 40, 72 (t = 18 s), 88, 104
 # beat: carrier 7 kHz, 1 kHz tone, 2.4 kHz deviation (beta 2.4)
 BEAT = "0.4*sin(2*PI*7000*t+2.4*sin(2*PI*1000*t))"
 # I/Q at 96 kHz: carrier +12 kHz, 800 Hz tone, beta 3 (2.4 kHz deviation)
@@ -340,7 +340,7 @@ class TestFmParts:
         with open_source(path, mode=settings.mode) as src:
             gate_n = int(round(settings.gate_s * src.meta.fs_hz))
             plan = parallel.plan_for(src.meta.frames, gate_n, 2, settings)
-            assert [a // gate_n for a, _ in plan] == [0, 32, 56, 72, 88, 104]
+            assert [a // gate_n for a, _ in plan] == [0, 40, 72, 88, 104]
         two = analyze_file(path, settings=settings, jobs=2)
         _compare_fm(one, two)
         return one, two
@@ -375,29 +375,29 @@ class TestFmParts:
         assert two.extra["fm"]["mod_tone_hz"] == pytest.approx(800.0, abs=1e-3)
 
     def test_tone_that_changes_at_a_part_start(self, fm_dir):
-        # The modulating tone steps from 1 kHz to 1.25 kHz exactly at 14 s (gate 56, a
-        # part's first) and is absent from 12 s on, so one pass searches afresh there:
+        # The modulating tone steps from 1 kHz to 1.25 kHz exactly at 18 s (gate 72, a
+        # part's first) and is absent from 16 s on, so one pass searches afresh there:
         # the part's start must still give one pass's figures.
         from monitor.fm_engine import FmSettings
 
         expr = (
-            "0.4*sin(2*PI*7000*t+if(lt(t,12),2.4*sin(2*PI*1000*t),"
-            "if(lt(t,14),0,1.92*sin(2*PI*1250*t))))"
+            "0.4*sin(2*PI*7000*t+if(lt(t,16),2.4*sin(2*PI*1000*t),"
+            "if(lt(t,18),0,1.92*sin(2*PI*1250*t))))"
         )
         path = _with_noise(_ffmpeg(fm_dir, "step", expr, 48000, 30), 3e-3, 3)
         s = AnalysisSettings(mode="beat", gate_s=FM_GATE, fm=FmSettings(if_bandwidth_hz=9000.0))
         _, two = self._both(path, s)
         tones = [r.mod_tone_hz for r in two.readings]
-        assert tones[46] == pytest.approx(1000.0, abs=0.01) and tones[50] is None
-        assert tones[58] == pytest.approx(1250.0, abs=0.01)
+        assert tones[62] == pytest.approx(1000.0, abs=0.01) and tones[66] is None
+        assert tones[74] == pytest.approx(1250.0, abs=0.01)
 
     def test_tone_lost_only_on_the_gate_before_a_part(self, fm_dir):
-        # Modulation off for the half second before a part (gates 54-55): one pass
-        # follows the tone of gate 53 into gate 56, a part searches afresh; the parent
+        # Modulation off for the half second before a part (gates 70-71): one pass
+        # follows the tone of gate 69 into gate 72, a part searches afresh; the parent
         # runs that part itself.
         from monitor.fm_engine import FmSettings
 
-        expr = "0.4*sin(2*PI*7000*t+if(between(t,13.5,14),0,2.4*sin(2*PI*1000*t)))"
+        expr = "0.4*sin(2*PI*7000*t+if(between(t,17.5,18),0,2.4*sin(2*PI*1000*t)))"
         path = _with_noise(_ffmpeg(fm_dir, "gap", expr, 48000, 30), 3e-3, 4)
         s = AnalysisSettings(mode="beat", gate_s=FM_GATE, fm=FmSettings(if_bandwidth_hz=9000.0))
         self._both(path, s)
