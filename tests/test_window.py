@@ -117,6 +117,9 @@ def _wait_done(qtbot, win, timeout_ms=60000):
         s = win.session
         assert s is not None and s.done
         assert win.latest is not None and win.latest.seq == s.stats.readings
+        # and the last gate's view drawn (the plots and markers follow the views, which
+        # can trail the readings by a timer tick)
+        assert not s.views_since(win._vseq) and win._pending_view is None
 
     qtbot.waitUntil(finished, timeout=timeout_ms)
     win._update_text()
