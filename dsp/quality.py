@@ -657,15 +657,8 @@ def measure_quality(
     1.118
     """
     fs = _check_positive("fs_hz", fs_hz)
-    f0 = _check_positive("fundamental_hz", fundamental_hz)
-    if not f0 < fs / 2:
-        raise ValueError(
-            f"fundamental_hz={fundamental_hz} must be in (0, fs_hz/2) = (0, {fs / 2:g})"
-        )
-    if isinstance(n_harmonics, bool) or not isinstance(n_harmonics, (int, np.integer)):
-        raise TypeError(f"n_harmonics must be an int, got {type(n_harmonics).__name__}")
-    if n_harmonics < 1:
-        raise ValueError(f"n_harmonics={n_harmonics} must be >= 1")
+    f0 = _check_fundamental(fundamental_hz, fs)
+    _check_n_harmonics(n_harmonics)
     if mains is not None and (isinstance(mains, bool) or mains not in ("auto", 50, 60)):
         raise ValueError(f"mains={mains!r} must be 'auto', 50, 60 or None")
     a, total = _real_block_and_sum(x)
@@ -673,9 +666,7 @@ def measure_quality(
 
     # Lines: fundamental and harmonics 2..n_harmonics at or below fs/2, then the mains
     # lines (1..6 x 50 and/or 60 Hz) below fs/2 and not within 1/T of a signal line.
-    # (a harmonic up to half a bin beyond fs/2 is the line at fs/2 it aliases onto: it
-    # counts as that line, so the figures do not jump as the fundamental crosses fs/2q)
-    n_sig = max(1, min(int(n_harmonics), int(math.floor(fs / 2 * (1 + 1 / n) / f0))))
+    n_sig = _signal_lines(f0, fs, n, n_harmonics)
     mains_hz = (50.0, 60.0) if mains == "auto" else () if mains is None else (float(mains),)
     q_max = max(n_sig, _HUM_HARMONICS)
     n_base = 1 + len(mains_hz)
@@ -702,7 +693,6 @@ def measure_quality(
     w = 2.0 * np.pi * np.array(line_hz) / fs
     k = w.size
 
-    m_len, r_len = _fold_shape(n)
     xx = float(np.dot(a, a))
     if k == n_sig:  # the tone and its harmonics alone: the same path as a batch of gates
         nyquist = _nyquist_lines(w, n)
@@ -710,15 +700,14 @@ def measure_quality(
             [a], [total], w_base[:1], k, n, nyquist, [_well_separated(w, n, nyquist)]
         )
     else:
-        inner, outer = _tables(w_base, np.array(cols), q_max, m_len, r_len)
+        inner, outer = _tables(w_base, np.array(cols), q_max, *_fold_shape(n))
         z = _project(a, inner, outer)
         g = _gram(w, n)
         p = np.concatenate([[total], z.real, z.imag])
         nyquist = _nyquist_lines(w, n)
         sep = _well_separated(w, n, nyquist)
         if nyquist:
-            use = np.ones(2 * k + 1, dtype=bool)
-            use[[k + 1 + i for i in nyquist]] = False
+            use = _fitted_columns(k, nyquist)
             b = np.zeros(2 * k + 1)
             b[use] = _solve_normal(g[use][:, use], p[use], sep)
         else:
@@ -727,6 +716,36 @@ def measure_quality(
         a, xx, b, g, p, inner, outer, fs=fs, f0=f0, n_sig=n_sig, mains_hz=mains_hz,
         member=member, sfdr=sfdr,
     )  # fmt: skip
+
+
+def _check_fundamental(value, fs: float) -> float:
+    f0 = _check_positive("fundamental_hz", value)
+    if not f0 < fs / 2:
+        raise ValueError(f"fundamental_hz={value} must be in (0, fs_hz/2) = (0, {fs / 2:g})")
+    return f0
+
+
+def _check_n_harmonics(n_harmonics) -> None:
+    if isinstance(n_harmonics, bool) or not isinstance(n_harmonics, (int, np.integer)):
+        raise TypeError(f"n_harmonics must be an int, got {type(n_harmonics).__name__}")
+    if n_harmonics < 1:
+        raise ValueError(f"n_harmonics={n_harmonics} must be >= 1")
+
+
+def _signal_lines(f0: float, fs: float, n: int, n_harmonics: int) -> int:
+    """How many of the fundamental's lines (it and harmonics 2..n_harmonics) are fitted:
+    those at or below fs/2. A harmonic up to half a bin beyond fs/2 is the line at fs/2
+    it aliases onto: it counts as that line, so the figures do not jump as the
+    fundamental crosses fs/2q."""
+    return max(1, min(int(n_harmonics), int(math.floor(fs / 2 * (1 + 1 / n) / f0))))
+
+
+def _fitted_columns(k: int, nyquist: list[int]) -> np.ndarray:
+    """Mask of the fit's columns [DC, cos.., sin..] for k lines: all but the sine
+    columns of the lines at fs/2 (`_nyquist_lines`), fitted as cosines."""
+    use = np.ones(2 * k + 1, dtype=bool)
+    use[[k + 1 + i for i in nyquist]] = False
+    return use
 
 
 def _nyquist_lines(w: np.ndarray, n: int) -> list[int]:
@@ -766,8 +785,7 @@ def _fit_harmonic_stack(arrs, totals, w0, k: int, n: int, nyquist: list[int], se
         p[i, 0] = totals[i]
         p[i, 1 : k + 1] = z.real
         p[i, k + 1 :] = z.imag
-    use = np.ones(2 * k + 1, dtype=bool)
-    use[[k + 1 + i for i in nyquist]] = False
+    use = _fitted_columns(k, nyquist)
     gu = g[:, use][:, :, use] if nyquist else g
     pu = p[:, use] if nyquist else p
     # columns that vanish (sin at 0) or lines too close take the careful solver, gate by
@@ -796,7 +814,6 @@ def _figures_from_fit(
 ) -> QualityFigures:
     """The figures of one gate from its joint fit (see `measure_quality`)."""
     n = a.size
-    total = float(p[0])
     k = (b.size - 1) // 2
     bc, bs = b[1 : k + 1], b[k + 1 :]
     dg = g.diagonal()
@@ -848,7 +865,6 @@ def _figures_from_fit(
             "DC and its harmonics, so the figures are unreliable (a longer record or gate helps)",
             stacklevel=3,
         )
-    del total
     return _figures_from_powers(
         fundamental_hz=f0,
         fs_hz=fs,
@@ -889,10 +905,7 @@ def measure_quality_many(
         length.
     """
     fs = _check_positive("fs_hz", fs_hz)
-    if isinstance(n_harmonics, bool) or not isinstance(n_harmonics, (int, np.integer)):
-        raise TypeError(f"n_harmonics must be an int, got {type(n_harmonics).__name__}")
-    if n_harmonics < 1:
-        raise ValueError(f"n_harmonics={n_harmonics} must be >= 1")
+    _check_n_harmonics(n_harmonics)
     if np.ndim(sfdr) != 1 or np.ndim(fundamentals_hz) != 1:
         raise TypeError("fundamentals_hz and sfdr must be sequences, one entry a gate")
     xs, f0s, full = list(xs), list(fundamentals_hz), [bool(s) for s in sfdr]
@@ -903,12 +916,10 @@ def measure_quality_many(
     gates = []
     groups: dict[tuple, list[int]] = {}
     for i, (x, f) in enumerate(zip(xs, f0s, strict=True)):
-        f0 = _check_positive("fundamental_hz", f)
-        if not f0 < fs / 2:
-            raise ValueError(f"fundamental_hz={f} must be in (0, fs_hz/2) = (0, {fs / 2:g})")
+        f0 = _check_fundamental(f, fs)
         a, total = _real_block_and_sum(x)
         n = a.size
-        n_sig = max(1, min(int(n_harmonics), int(math.floor(fs / 2 * (1 + 1 / n) / f0))))
+        n_sig = _signal_lines(f0, fs, n, n_harmonics)
         w = 2.0 * np.pi * np.array([f0 * q for q in range(1, n_sig + 1)]) / fs
         nyquist = _nyquist_lines(w, n)
         gates.append((a, total, f0, n_sig, _well_separated(w, n, nyquist)))

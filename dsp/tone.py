@@ -218,7 +218,7 @@ class _Gate:
         coef = self._coef(omega)
         s0 = coef @ self.q[:_TAYLOR]  # sum_m x e^{-j w m}
         s1 = coef @ self.q[1 : _TAYLOR + 1]  # sum_m x m e^{-j w m}
-        return s0, s1, coef
+        return s0, s1
 
     def sums(self, omega: float):
         """Everything one Gauss–Newton step needs at angular frequency `omega`.
@@ -229,7 +229,7 @@ class _Gate:
         t cos(theta t) and t^2 sin(theta t) vanish.
         """
         lay = self.lay
-        s0, s1, _ = self._row_sums(omega)
+        s0, s1 = self._row_sums(omega)
         er_c = np.exp(-1j * omega * lay.u)  # e^{-j w u_r}
         p0 = complex(er_c @ s0)
         p1 = complex(er_c @ (lay.u * s0 + s1))

@@ -609,14 +609,14 @@ class FmProcessor:
         """The quality meter on the demodulated audio of each gate with a tone, the
         gates of a batch together (`dsp.quality.measure_quality_many`: the figures of
         one gate at a time, bit for bit)."""
-        todo: dict[float, list[tuple[dict, bool]]] = {}
+        todo: list[tuple[dict, bool]] = []
+        fs_out = self._demod.fs_out_hz  # (set up by the batch's first gate)
         for c in ctx:
             full = self._schedule.next_gate(c["gate_index"])
             tone = c["tone"]
             if tone is None:
                 self.no_tone_gates += 1
                 continue
-            fs_out = c["block"].fs_out_hz
             if 0 < tone.frequency_hz < fs_out / 2:
                 # the spur search (the dearest part) on a sample of gates, as in audio
                 # mode (engine.QualitySchedule); no hum fit: hum on the modulation is
@@ -624,16 +624,15 @@ class FmProcessor:
                 # Without mains lines the schedule does not look at the figures, so it
                 # runs ahead of them.
                 self._schedule.measured(None, full)
-                todo.setdefault(fs_out, []).append((c, full))
-        for fs_out, gates in todo.items():
-            figs = dq.measure_quality_many(
-                [c["dev_f"] for c, _ in gates],
-                fs_out,
-                [c["tone"].frequency_hz for c, _ in gates],
-                sfdr=[full for _, full in gates],
-            )
-            for (c, _), qual in zip(gates, figs, strict=True):
-                c["qual"] = qual
+                todo.append((c, full))
+        figs = dq.measure_quality_many(
+            [c["dev_f"] for c, _ in todo],
+            fs_out,
+            [c["tone"].frequency_hz for c, _ in todo],
+            sfdr=[full for _, full in todo],
+        )
+        for (c, _), qual in zip(todo, figs, strict=True):
+            c["qual"] = qual
         for c in ctx:  # the summary's sums in gate order
             if c.get("qual") is not None:
                 self._quality.add(c["qual"])
@@ -769,7 +768,7 @@ class FmProcessor:
         demod.seek(pre)
         last = None
         for a in range(pre, start, gate_n):
-            x = np.concatenate([blk.samples for blk in source.blocks_between(a, a + gate_n)])
+            x = source.samples_between(a, a + gate_n)
             if self.kind == "complex" and self.fms.iq_correct:
                 health = _iq_health_or_none(x)
                 if health is not None:

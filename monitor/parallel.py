@@ -51,8 +51,6 @@ import threading
 import warnings
 from collections.abc import Callable
 
-import numpy as np
-
 from monitor.blocks import Block
 from monitor.engine import SFDR_EVERY_GATES, Analysis, AnalysisSettings, Engine, _gate_n
 
@@ -241,11 +239,7 @@ def _prepare_audio_part(p, src, start: int, gate_n: int, gate_index: int, sos) -
             pre = max(0, start - int(math.ceil(PREROLL_S * src.meta.fs_hz)))
             for block in src.blocks_between(pre, start):
                 p.filtered(block.samples)
-        p.warm_up(_gate_samples(src, start - gate_n, gate_n))
-
-
-def _gate_samples(source, start: int, n: int):
-    return np.concatenate([b.samples for b in source.blocks_between(start, start + n)])
+        p.warm_up(src.samples_between(start - gate_n, start))
 
 
 def _joins(engine: Engine, part: Engine, source, start: int) -> bool:
@@ -262,7 +256,7 @@ def _joins(engine: Engine, part: Engine, source, start: int) -> bool:
         return True  # one pass searches afresh here too
     from monitor.engine import TONE_GATE_SNR_MIN_DB
 
-    x = _gate_samples(source, start, engine.gate_n)
+    x = source.samples_between(start, start + engine.gate_n)
     if x.shape[0] < engine.gate_n:
         return False
     est = p._tone(x)
@@ -310,7 +304,7 @@ def analyze_parts(
     parts = plan_for(meta.frames, gate_n, jobs, settings)
     warm = Engine(meta, settings, keep_readings=False)
     try:
-        first = _gate_samples(source, 0, gate_n)
+        first = source.samples_between(0, gate_n)
     except NonFiniteSamples:
         return run(source, settings, progress=progress)
     if settings.mode in ("beat", "iq"):

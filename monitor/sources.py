@@ -351,6 +351,13 @@ class SoundFileSource(_BlockReader):
         """True for integer PCM files: every sample is finite and within full scale."""
         return self._integer_samples
 
+    def samples_between(self, start: int, stop: int) -> np.ndarray:
+        """Frames [start, stop) as one new array (`blocks_between` joined: never a
+        refilled buffer)."""
+        # with reuse_buffers each block is overwritten by the next read: copy it first
+        keep = np.copy if self.reuse_buffers else np.asarray
+        return np.concatenate([keep(b.samples) for b in self.blocks_between(start, stop)])
+
     def blocks_between(self, start: int, stop: int) -> Iterator[Block]:
         """Blocks of frames [start, stop) (stream indices as in a whole read).
 

@@ -446,6 +446,21 @@ class TestReusedBuffers:
             # the same memory every time: no fresh array a read
             assert np.shares_memory(again[0], again[1])
 
+    def test_samples_between_is_a_new_array(self, tmp_path):
+        # a stretch across blocks, joined: libsndfile's own read of it, and its own
+        # memory even while the reader refills its buffers
+        x = reference_signal(n=10000)
+        path = tmp_path / "s.wav"
+        sf.write(path, x, 8000, subtype="FLOAT")
+        truth, _ = sf.read(path, dtype="float64")
+        src = SoundFileSource(path, block_frames=3000)
+        src.reuse_buffers = True
+        with src:
+            a = src.samples_between(2500, 7100)
+            b = src.samples_between(0, 3000)
+        assert np.array_equal(a, truth[2500:7100]) and np.array_equal(b, truth[:3000])
+        assert not np.shares_memory(a, b)
+
     def test_fm_analysis_reuses_them_and_reads_as_with_fresh_blocks(self, tmp_path):
         from monitor.blocks import Block
         from monitor.engine import AnalysisSettings, Engine, analyze_file
