@@ -273,7 +273,10 @@ class TestHistogramParts:
     def test_merged_counts_equal_one_histogram(self, cut, spread):
         # Two parts (the second much wider, so its bins widen on their own) merged: the
         # same width and counts as one histogram fed both, count for count; the
-        # exceedances then agree exactly, and they match numpy.quantile of |x| to a bin.
+        # exceedances then agree exactly, and they lie within a bin of the order
+        # statistics (numpy.sort) that bracket the level. (Not numpy.quantile to a bin:
+        # in a sparse tail two neighbouring samples can lie several bins apart, and
+        # quantile conventions differ by one sample there; a seed found it.)
         rng = np.random.default_rng(cut)
         x = np.concatenate([300.0 * rng.standard_normal(cut), spread * rng.standard_normal(20000)])
         one = DeviationHistogram(1.0, max_bins=4096)
@@ -284,11 +287,16 @@ class TestHistogramParts:
         a.merge(b)
         assert a.bin_hz == one.bin_hz
         assert a.to_dict() == one.to_dict()
+        mags = np.sort(np.abs(x))
         for q in (0.1, 0.01):
-            assert a.exceeded_hz(q) == one.exceeded_hz(q)
-            assert a.exceeded_hz(q) == pytest.approx(
-                np.quantile(np.abs(x), 1 - q), abs=2 * one.bin_hz
-            )
+            level = a.exceeded_hz(q)
+            assert level == one.exceeded_hz(q)
+            # q*n samples lie above the level: it falls between the samples ranked
+            # n - q*n - 1 and n - q*n + 1 (one sample of slack for either convention),
+            # give or take a bin
+            k = mags.size - q * mags.size
+            lo, hi = mags[int(np.floor(k)) - 2], mags[min(int(np.ceil(k)) + 1, mags.size - 1)]
+            assert lo - one.bin_hz <= level <= hi + one.bin_hz
 
     def test_widths_not_exact_in_binary(self):
         # a base width of 0.3 Hz (not a binary fraction): bins are merged by index, so
