@@ -16,6 +16,7 @@ from dataclasses import dataclass, fields, is_dataclass, replace
 
 import numpy as np
 
+from dsp import filters as dfilters
 from dsp import fm as dfm
 from dsp import iq as diq
 from dsp import quality as dq
@@ -50,6 +51,9 @@ CARRIER_MIN_SNR_DB = 15.0
 SPECTRUM_SEGMENTS_PER_GATE = 4
 SPECTRUM_FULL_GATES = 8
 SPECTRUM_STRIDE = 2
+# The tone's deviation is divided by the post chain's gain at the tone; below this gain
+# (-20 dB: a tone outside the filter's band) the summary says so.
+TONE_GAIN_WARN = 0.1
 # An IF band holding less of the signal's power than this gives no trustworthy deviation.
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
@@ -328,6 +332,7 @@ class FmProcessor:
         self.setup: FmSetup | None = None
         self._demod: dfm.FmDemodulator | None = None
         self._post_filter = None  # dsp.filters.SosStream of the post-demodulation chain
+        self._post_sos: np.ndarray | None = None  # its sections (the tone's gain through it)
         self.post_filter = "none"
         self._join = dt.GateJoin()  # the carrier, gate by gate (offsets from the mixer)
         self._cnr = _MedianBins(CNR_MEDIAN_STEP_DB)
@@ -349,6 +354,7 @@ class FmProcessor:
         self._tone_wf = 0.0
         self._tone_amp_sum = 0.0
         self._tone_n = 0
+        self._tone_gain_min = math.inf  # least gain of the post chain at a fitted tone
         self._hold = 0.0
         self._last_baseband: dfm.DemodBlock | None = None  # the last gate's
         self._last_offset_hz = 0.0
@@ -453,6 +459,7 @@ class FmProcessor:
         from dsp import filters
 
         self._post_filter = None if chain is None else filters.SosStream(chain)
+        self._post_sos = chain
         self._power = dfm.ModulationPowerMeter(
             fs_out, start_index=self._demod.outputs_for(start_frame)
         )
@@ -600,8 +607,18 @@ class FmProcessor:
         w = 1.0 / max(tone.uncertainty_hz, 1e-300) ** 2
         self._tone_w += w
         self._tone_wf += w * tone.frequency_hz
-        # the tone's deviation without the discriminator's residual droop
-        c["tone_amp"] = amp = tone.amplitude / float(self._demod.droop_response(tone.frequency_hz))
+        # the tone's deviation on the carrier: without the discriminator's residual droop
+        # nor the post filter's and de-emphasis's gain at the tone (both known exactly)
+        gain = float(self._demod.droop_response(tone.frequency_hz))
+        if self._post_sos is not None:
+            post_gain = dfilters.sos_gain(
+                self._post_sos,
+                min(tone.frequency_hz, c["block"].fs_out_hz / 2.0),
+                c["block"].fs_out_hz,
+            )
+            self._tone_gain_min = min(self._tone_gain_min, post_gain)
+            gain *= post_gain
+        c["tone_amp"] = amp = tone.amplitude / gain
         self._tone_amp_sum += amp
         self._tone_n += 1
 
@@ -830,6 +847,7 @@ class FmProcessor:
         self._tone_wf += later._tone_wf
         self._tone_amp_sum += later._tone_amp_sum
         self._tone_n += later._tone_n
+        self._tone_gain_min = min(self._tone_gain_min, later._tone_gain_min)
         self._hold = max(self._hold, later._hold)
         self.no_tone_gates += later.no_tone_gates
         self._iq_dead_gates += later._iq_dead_gates
@@ -1055,6 +1073,14 @@ class FmProcessor:
             )
         if not self._tone_n:
             out.append("no modulating tone found: modulation index and Bessel fit not given")
+        elif self._tone_gain_min < TONE_GAIN_WARN:
+            out.append(
+                f"the modulating tone lies where the post filter ({self.post_filter}, "
+                f"de-emphasis {self.fms.deemphasis}) passes only "
+                f"{20 * math.log10(max(self._tone_gain_min, 1e-12)):.1f} dB: its deviation "
+                "and the modulation index are scaled up by that much and carry its noise "
+                "(--post-filter none measures it directly)"
+            )
         return out
 
     def extra(self) -> dict:

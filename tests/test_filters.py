@@ -18,6 +18,7 @@ from dsp.filters import (
     emphasis_sos,
     filter_response_db,
     filter_sos,
+    sos_gain,
 )
 
 RATES = [8000.0, 16000.0, 44100.0, 48000.0, 96000.0, 384000.0]
@@ -228,6 +229,35 @@ class TestEmphasisSos:
             emphasis_sos(50e-6, -1)
         with pytest.raises(TypeError, match="tau_s must be a number"):
             emphasis_sos("50us", 48000)
+
+
+class TestSosGain:
+    @pytest.mark.parametrize(
+        ("name", "fs"),
+        [
+            (name, fs)
+            for name in ("300-3000", "20-15k", "a-weight", "deemph-50us")
+            for fs in (8000.0, 48000.0, 192000.0)
+            if not (name == "20-15k" and fs < 30000.0)  # it needs fs > 30 kHz
+        ],
+    )
+    def test_against_scipy_sosfreqz(self, name, fs):
+        # the reference: scipy.signal.sosfreqz at the same frequencies
+        sos = filter_sos(name, fs)
+        f = np.array([0.0, 20.0, 299.0, 1000.0, 3000.0, 0.3 * fs, 0.5 * fs])
+        _, h = signal.sosfreqz(sos, worN=f, fs=fs)
+        got = [sos_gain(sos, fi, fs) for fi in f]
+        # (both round near the poles of a low corner: agreement to 1e-8 is rounding)
+        np.testing.assert_allclose(got, np.abs(h), rtol=1e-8, atol=1e-12)
+
+    def test_raises(self):
+        sos = filter_sos("300-3000", 48000.0)
+        with pytest.raises(ValueError, match="shape"):
+            sos_gain(sos[:, :5], 1000.0, 48000.0)
+        with pytest.raises(ValueError, match=r"0\.\.fs_hz/2"):
+            sos_gain(sos, 30000.0, 48000.0)
+        with pytest.raises(ValueError, match="fs_hz"):
+            sos_gain(sos, 1000.0, -1.0)
 
 
 class TestSosStream:

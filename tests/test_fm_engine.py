@@ -120,6 +120,47 @@ class TestBeat:
         assert fm["cnr_db"] == pytest.approx(np.median(cnrs), abs=CNR_MEDIAN_STEP_DB / 2)
 
 
+class TestToneThroughPostFilter:
+    """The tone's deviation and the modulation index are the carrier's, whatever the post
+    filter and de-emphasis do to the demodulated audio (their gain at the tone is divided
+    out); the peak figures stay as filtered. Truth: the ffmpeg generator's beta * fm."""
+
+    @pytest.mark.parametrize(
+        ("fm", "beta", "extra"),
+        [
+            (300.0, 1.0, {}),  # the 300-3000 filter's lower corner (-3 dB)
+            (2500.0, 1.0, {}),  # near its upper corner
+            (3000.0, 2.0, {"if_bandwidth_hz": 19000.0}),  # at the upper corner
+            (1000.0, 1.5, {"deemphasis": "50us"}),  # 1 kHz through 50 us: -0.41 dB
+            (1000.0, 1.5, {"deemphasis": "75us", "post_filter": "none"}),
+        ],
+    )
+    def test_mod_index_is_the_carriers(self, ffmpeg, tmp_path, fm, beta, extra):
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=10000.0, beta=beta, fm=fm)
+        a, s = fm_summary(p, "beat", **extra)
+        assert s["mod_index"] == pytest.approx(beta, rel=0.005)
+        assert within(s["deviation"]["tone_peak_hz"], beta * fm)
+        assert s["carson_bw_hz"] == pytest.approx(2 * (beta * fm + fm), rel=0.005)
+        assert all(r.mod_index == pytest.approx(beta, rel=0.005) for r in a.readings)
+        assert not any("passes only" in w for w in a.summary.warnings)
+
+    def test_deemphasis_lowers_the_filtered_peaks_only(self, ffmpeg, tmp_path):
+        # 75 us at 2122 Hz corner: a 2 kHz tone comes out at 1/sqrt(1 + (2000/2122)^2)
+        # = 0.7277 (ITU-R BS.450 time constant; first-order low-pass, common practice)
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=10000.0, beta=1.0, fm=2000.0)
+        _, s = fm_summary(p, "beat", deemphasis="75us", post_filter="none")
+        g = 1.0 / math.sqrt(1.0 + (2000.0 * 2 * math.pi * 75e-6) ** 2)
+        assert s["deviation"]["peak_avg_hz"] == pytest.approx(2000.0 * g, rel=0.01)
+        assert s["mod_index"] == pytest.approx(1.0, rel=0.005)
+
+    def test_tone_outside_the_filter_band_is_said(self, ffmpeg, tmp_path):
+        # 150 Hz through the 300-3000 filter: about -25 dB; still corrected, but said
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=10000.0, beta=2.0, fm=150.0)
+        a, s = fm_summary(p, "beat")
+        assert s["mod_index"] == pytest.approx(2.0, rel=0.01)
+        assert any("passes only" in w and "--post-filter none" in w for w in a.summary.warnings)
+
+
 class TestCnrMedian:
     @settings(max_examples=200, deadline=None)
     @given(
