@@ -189,16 +189,17 @@ def _gate_power(x: np.ndarray, fs_hz: float, kind: str):
 
 def find_carrier(
     x: np.ndarray, fs_hz: float, *, kind: str, near_hz: float | None = None, spectrum=None
-) -> tuple[float, float, float]:
+) -> tuple[float, float, float, np.ndarray]:
     """Coarse carrier and signal width from one gate's spectrum.
 
     The carrier of symmetric FM is the centre of its group of lines (its own line may be
     nulled, a sideband may be the strongest). Take the significant spectral peaks, group
     neighbours whose gaps stay within 2.5 times the typical line spacing (so one nulled
     line does not split the group), keep the group holding the strongest peak (or the
-    peak nearest `near_hz`), and return its power-weighted centre, its width and the SNR
-    of its strongest peak: (centre_hz, width_hz, snr_db). `spectrum` is the gate's
-    (freqs, power) from `_gate_power`, when the caller has it already.
+    peak nearest `near_hz`), and return its power-weighted centre, its width, the SNR
+    of its strongest peak and the frequencies of its lines: (centre_hz, width_hz, snr_db,
+    lines_hz). `spectrum` is the gate's (freqs, power) from `_gate_power`, when the
+    caller has it already.
     """
     n = x.shape[0]
     freqs, p = spectrum if spectrum is not None else _gate_power(x, fs_hz, kind)
@@ -240,7 +241,7 @@ def find_carrier(
     idx = np.unique(np.clip(np.concatenate([group - 1, group, group + 1]), 0, p.size - 1))
     centre = float(np.sum(freqs[idx] * p[idx]) / np.sum(p[idx]))
     width = float(freqs[group[-1]] - freqs[group[0]]) + spacing * fs_hz / n
-    return centre, width, snr_db
+    return centre, width, snr_db, freqs[group]
 
 
 def power_fraction_within(
@@ -385,7 +386,7 @@ class FmProcessor:
                 "with --mode beat"
             )
         spectrum = _gate_power(x, self.fs, self.kind)  # one transform for both questions
-        centroid, width, _ = find_carrier(
+        centroid, width, _, lines = find_carrier(
             x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz, spectrum=spectrum
         )
         if fms.if_bandwidth_hz is not None:
@@ -407,6 +408,20 @@ class FmProcessor:
                 )
         else:
             bw = min(bw, 0.8 * self.fs)
+        # The first sideband pair (the lines nearest the carrier, at +/- fm) outside the
+        # IF band: the tone would be filtered out whole and the deviation read as zero,
+        # however little power the sidebands hold.
+        bin_hz = self.fs / x.shape[0]
+        away = np.abs(lines - centroid)
+        side = away[away > 2.5 * bin_hz]
+        if side.size and float(side.min()) > bw / 2:
+            d1 = float(side.min())
+            raise InputError(
+                f"{self.meta.source}: the sidebands nearest the carrier at {centroid:.1f} Hz "
+                f"lie {d1:.0f} Hz away, outside the IF bandwidth {bw:g} Hz (a modulating "
+                f"tone above half of it would be filtered out and the deviation read as "
+                f"zero); widen --if-bandwidth to at least {2.4 * d1:.0f} Hz"
+            )
         inside = power_fraction_within(
             x, self.fs, self.kind, centroid - bw / 2, centroid + bw / 2, spectrum=spectrum
         )

@@ -326,12 +326,30 @@ class TestBadInput:
         )  # fmt: skip
 
     def test_if_band_too_narrow(self, ffmpeg, tmp_path, capsys):
-        # fm = 800 Hz with an IF of 1 kHz: the sidebands fall outside; no deviation figure
+        # beta 2 at 800 Hz in a 2 kHz IF: the first sideband pair is in, but the band holds
+        # J0^2 + 2 J1^2 = 71% of the power (scipy.special.jv): no deviation figure
         p = beat_fm(ffmpeg, tmp_path / "fm.wav")
         self._fails(
-            capsys, "analyze", str(p), "--mode", "beat", "--if-bandwidth", "1000",
+            capsys, "analyze", str(p), "--mode", "beat", "--if-bandwidth", "2000",
             match="holds only",
         )  # fmt: skip
+
+    @pytest.mark.parametrize("mode", ["beat", "iq"])
+    def test_tone_above_half_the_if_bandwidth(self, ffmpeg, tmp_path, capsys, mode):
+        # beta 0.2 at 3 kHz in a 4 kHz IF: 98% of the power (the carrier) is in the band,
+        # but both sidebands are out, so the tone would vanish and the deviation read 0
+        if mode == "beat":
+            p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=10000.0, beta=0.2, fm=3000.0)
+        else:
+            p = iq_fm(ffmpeg, tmp_path / "fm.wav", offset=8000.0, beta=0.2, fm=3000.0)
+        self._fails(
+            capsys, "analyze", str(p), "--mode", mode, "--if-bandwidth", "4000",
+            match="3000 Hz away, outside the IF bandwidth 4000 Hz",
+        )  # fmt: skip
+        # with the band the message asks for, the figures are right (generator's 600 Hz)
+        _, fm = fm_summary(p, mode, if_bandwidth_hz=7200.0)
+        assert fm["mod_index"] == pytest.approx(0.2, rel=0.005)
+        assert within(fm["deviation"]["tone_peak_hz"], 600.0)
 
     def test_if_band_does_not_fit(self, ffmpeg, tmp_path, capsys):
         p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=2000.0, beta=0.5, fm=300.0)
