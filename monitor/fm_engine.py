@@ -161,13 +161,32 @@ def rf_from_carrier(meta: StreamMeta, carrier_hz: float) -> float | None:
 
     beat: RF = dial + carrier (upper sideband) or dial - carrier (lower sideband);
     iq: RF = centre + offset (the centre from SigMF metadata or `--dial`).
+    None without a dial or centre, and where the sum is no positive frequency (a dial
+    below the beat note on the lower sideband: a wrong dial or sideband, which
+    `rf_warning` says).
     """
     if meta.mode == "iq":
         center = meta.center_hz if meta.center_hz is not None else meta.dial_hz
-        return None if center is None else center + carrier_hz
-    if meta.dial_hz is None:
+        rf = None if center is None else center + carrier_hz
+    elif meta.dial_hz is None:
+        rf = None
+    else:
+        rf = meta.dial_hz + carrier_hz if meta.sideband == "upper" else meta.dial_hz - carrier_hz
+    return rf if rf is None or rf > 0 else None
+
+
+def rf_warning(meta: StreamMeta, carrier_hz: float) -> str | None:
+    """Why a dial or centre that was given yields no RF frequency (None when it does)."""
+    given = meta.dial_hz if meta.mode == "beat" else (meta.center_hz or meta.dial_hz)
+    if given is None or rf_from_carrier(meta, carrier_hz) is not None:
         return None
-    return meta.dial_hz + carrier_hz if meta.sideband == "upper" else meta.dial_hz - carrier_hz
+    how = (
+        f"dial {given:.0f} Hz {'+' if meta.sideband == 'upper' else '-'} beat note "
+        f"{carrier_hz:.1f} Hz"
+        if meta.mode == "beat"
+        else f"centre {given:.0f} Hz + offset {carrier_hz:.1f} Hz"
+    )
+    return f"no RF frequency: {how} is not a positive frequency (check --dial and --sideband)"
 
 
 def _gate_power(x: np.ndarray, fs_hz: float, kind: str):
@@ -1086,6 +1105,9 @@ class FmProcessor:
                 f"carrier-to-noise ratio {s.cnr_db:.1f} dB: the discriminator output is noisy "
                 "and peak deviation reads high"
             )
+        rf_note = rf_warning(self.meta, s.carrier_hz)
+        if rf_note is not None:
+            out.append(rf_note)
         if not self._tone_n:
             out.append("no modulating tone found: modulation index and Bessel fit not given")
         elif self._tone_gain_min < TONE_GAIN_WARN:

@@ -16,7 +16,13 @@ from hypothesis import strategies as st
 from monitor.blocks import StreamMeta
 from monitor.cli import main
 from monitor.engine import AnalysisSettings, analyze_file
-from monitor.fm_engine import CNR_MEDIAN_STEP_DB, FmSettings, _MedianBins, rf_from_carrier
+from monitor.fm_engine import (
+    CNR_MEDIAN_STEP_DB,
+    FmSettings,
+    _MedianBins,
+    rf_from_carrier,
+    rf_warning,
+)
 
 # First zero of J0 (Abramowitz & Stegun Table 9.5; DLMF 10.21) [seen cited].
 J0_FIRST_ZERO = 2.404825557695773
@@ -284,6 +290,19 @@ class TestRfArithmetic:
 
     def test_no_dial(self):
         assert rf_from_carrier(self.meta(mode="beat"), 1500.0) is None
+        assert rf_warning(self.meta(mode="beat"), 1500.0) is None
+
+    def test_dial_below_the_beat_note_on_lsb(self, ffmpeg, tmp_path, capsys):
+        # dial 5 kHz, lower sideband, beat note 9 kHz: 5000 - 9000 < 0 Hz, no frequency
+        m = self.meta(mode="beat", dial_hz=5000.0, sideband="lower")
+        assert rf_from_carrier(m, 9000.0) is None
+        assert "not a positive frequency" in rf_warning(m, 9000.0)
+        p = beat_fm(ffmpeg, tmp_path / "h.wav")
+        argv = ["analyze", str(p), "--mode", "beat", "--dial", "5k", "--sideband", "lower"]
+        assert main([*argv, "--json"]) == 0
+        d = json.loads(capsys.readouterr().out)
+        assert d["fm"]["rf_hz"] is None and d["fm"]["fundamental_hz"] is None
+        assert any("check --dial and --sideband" in w for w in d["warnings"])
 
     def test_harmonic_through_the_cli(self, ffmpeg, tmp_path, capsys):
         # beat 9 kHz on USB at dial 97.291 MHz: RF 97.300 MHz; heard as the 3rd harmonic,
