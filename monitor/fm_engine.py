@@ -54,6 +54,10 @@ SPECTRUM_STRIDE = 2
 # The tone's deviation is divided by the post chain's gain at the tone; below this gain
 # (-20 dB: a tone outside the filter's band) the summary says so.
 TONE_GAIN_WARN = 0.1
+# Below this image rejection (dB) two channels are no I/Q pair: identical (or inverted)
+# channels give 0 dB, where even a poor quadrature mixer gives 15-25 dB (common practice).
+# (Two unrelated channels cannot be told from I/Q by these statistics.)
+IQ_MIN_IMAGE_REJECTION_DB = 6.0
 # An IF band holding less of the signal's power than this gives no trustworthy deviation.
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
@@ -397,12 +401,19 @@ class FmProcessor:
         choose the IF bandwidth and filter (`configure` takes it)."""
         fms = self.fms
         notes: list[str] = []
-        if self.kind == "complex" and _iq_health_or_none(x) is None:
+        health = _iq_health_or_none(x) if self.kind == "complex" else None
+        if self.kind == "complex" and health is None:
             dead = "I (left)" if float(np.var(x.real)) <= float(np.var(x.imag)) else "Q (right)"
             raise InputError(
                 f"{self.meta.source}: the {dead} channel of the I/Q pair carries no signal in "
                 "the first gate; check the stereo connection, or analyse the other channel "
                 "with --mode beat"
+            )
+        if health is not None and health.image_rejection_db < IQ_MIN_IMAGE_REJECTION_DB:
+            raise InputError(
+                f"{self.meta.source}: the two channels are not an I/Q pair (image rejection "
+                f"{health.image_rejection_db:.1f} dB: they carry the same signal, as mono "
+                "audio on two channels does); analyse it with --mode audio or --mode beat"
             )
         spectrum = _gate_power(x, self.fs, self.kind)  # one transform for both questions
         centroid, width, _, lines = find_carrier(

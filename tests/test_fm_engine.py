@@ -381,6 +381,15 @@ class TestBadInput:
         p = beat_fm(ffmpeg, tmp_path / "fm.wav")
         self._fails(capsys, "analyze", str(p), "--mode", "iq", match="--mode iq needs a stereo")
 
+    @pytest.mark.parametrize("sign", [1.0, -1.0])
+    def test_two_channel_audio_as_iq(self, ffmpeg, tmp_path, capsys, sign):
+        # an ffmpeg beat note copied to both channels (or inverted in one): image
+        # rejection 0 dB, so no I/Q pair; said as such, not as an IF band problem
+        mono, fs = sf.read(beat_fm(ffmpeg, tmp_path / "fm.wav"))
+        p = tmp_path / "two.wav"
+        sf.write(p, np.column_stack([mono, sign * mono]), fs, subtype="FLOAT")
+        self._fails(capsys, "analyze", str(p), "--mode", "iq", match="not an I/Q pair")
+
     def test_dead_q_channel(self, ffmpeg, tmp_path, capsys):
         # ffmpeg I/Q with the Q (right) channel silenced by numpy: named, not a traceback
         p = iq_fm(ffmpeg, tmp_path / "iq.wav", rate=48000, offset=6000.0, beta=0.5)
