@@ -5,13 +5,15 @@ from __future__ import annotations
 import csv
 import json
 import struct
+from pathlib import Path
 
 import numpy as np
 import pytest
 import soundfile as sf
 
 from monitor import __version__
-from monitor.cli import build_parser, main
+from monitor.cli import MODE_OPTIONS, build_parser, main, refuse_idle_options
+from monitor.errors import SwingmeterError
 
 
 def write_tone(path, f=1234.5, fs=48000, dur=3.0, amp=0.5, noise=1e-3, seed=3, subtype=None):
@@ -203,6 +205,202 @@ class TestBadInput:
     def test_iq_mode_on_mono(self, tmp_path, capsys):
         p = write_tone(tmp_path / "a.wav")
         self._fails(capsys, "analyze", str(p), "--mode", "iq", match="--mode iq needs a stereo")
+
+
+DEMO = Path(__file__).resolve().parent.parent / "recordings_demo"
+
+# An example value for each option that acts only in some modes.
+MODE_OPTION_VALUES = {
+    "--dial": ["97.29M"],
+    "--sideband": ["lower"],
+    "--harmonic": ["3"],
+    "--carrier-near": ["10k"],
+    "--if-bandwidth": ["8k"],
+    "--post-filter": ["300-3000"],
+    "--deemphasis": ["50us"],
+    "--iq-correct": [],
+}
+# (option, mode it does nothing in, a word of the advice)
+REFUSALS = [
+    ("--dial", "audio", "--mode beat"),
+    ("--sideband", "audio", "--mode beat"),
+    ("--harmonic", "audio", "--mode beat"),
+    ("--carrier-near", "audio", "--near HZ"),
+    ("--if-bandwidth", "audio", "no FM demodulator"),
+    ("--post-filter", "audio", "--filter"),
+    ("--deemphasis", "audio", "calibrate deviation"),
+    ("--iq-correct", "audio", "--mode iq"),
+    ("--iq-correct", "beat", "--mode iq"),
+    ("--sideband", "iq", "both sidebands"),
+]
+
+
+def write_iq_with_sidecar(path, mode="iq", sideband="upper"):
+    """A short stereo I/Q recording with the metadata sidecar `swingmeter record` writes
+    (which always holds a sideband, 'upper' by default, even in iq mode)."""
+    fs = 48000
+    t = np.arange(fs) / fs
+    z = 0.3 * np.exp(2j * np.pi * 3000.0 * t)
+    sf.write(path, np.stack([z.real, z.imag], axis=1), fs, subtype="FLOAT")
+    side = {
+        "format": "swingmeter-recording",
+        "version": 1,
+        "mode": mode,
+        "fs_hz": fs,
+        "channels": 2,
+        "harmonic": 1,
+        "clock_ppm": 0.0,
+        "sideband": sideband,
+        "center_hz": 7.0e6,
+    }
+    (path.parent / (path.name + ".swingmeter.json")).write_text(json.dumps(side))
+    return path
+
+
+def refused(argv):
+    """refuse_idle_options on argv: the message, or None."""
+    args = build_parser().parse_args(argv)
+    try:
+        refuse_idle_options(args, argv)
+    except SwingmeterError as exc:
+        return str(exc)
+    return None
+
+
+class TestModeOptions:
+    """Options typed for a mode they do nothing in are refused, never ignored."""
+
+    def _refused(self, capsys, argv, *parts):
+        rc = main(list(argv))
+        err = capsys.readouterr().err
+        assert rc == 2
+        assert err.startswith("swingmeter: error: ")
+        assert err.count("\n") == 1  # one line
+        for part in parts:
+            assert part in err
+        return err
+
+    @pytest.mark.parametrize(("flag", "mode", "advice"), REFUSALS)
+    def test_analyze_refuses(self, tmp_path, capsys, flag, mode, advice):
+        p = write_tone(tmp_path / "a.wav")
+        argv = ["analyze", str(p), "--mode", mode, flag, *MODE_OPTION_VALUES[flag]]
+        self._refused(capsys, argv, f"{flag} has no effect in {mode} mode:", advice)
+
+    def test_table_covers_every_option(self):
+        assert {o.flag for o in MODE_OPTIONS} == set(MODE_OPTION_VALUES)
+        for opt in MODE_OPTIONS:
+            for mode in ("audio", "beat", "iq"):
+                if mode in opt.modes:
+                    assert mode not in opt.advice
+                else:
+                    assert (opt.flag, mode) in {(f, m) for f, m, _ in REFUSALS}
+
+    @pytest.mark.parametrize("opt", MODE_OPTIONS, ids=lambda o: o.flag)
+    def test_accepted_where_it_acts(self, opt):
+        for mode in opt.modes:
+            for cmd in (["analyze", "x.wav"], ["live", "--no-window"], ["report", "x.wav"]):
+                argv = [*cmd, "--mode", mode, opt.flag, *MODE_OPTION_VALUES[opt.flag]]
+                if cmd[0] == "report":
+                    argv += ["-o", "r.html"]
+                assert refused(argv) is None, argv
+
+    def test_any_spelling_counts(self, tmp_path, capsys):
+        p = str(write_tone(tmp_path / "a.wav"))
+        self._refused(capsys, ["analyze", p, "--mode=iq", "--sideband=lower"], "--sideband")
+        self._refused(capsys, ["analyze", p, "--side", "upper"], "--sideband has no effect")
+        self._refused(capsys, ["analyze", p, "--deemphasis", "none"], "--deemphasis")
+
+    def test_default_mode_is_named(self, tmp_path, capsys):
+        p = write_tone(tmp_path / "a.wav")
+        err = self._refused(capsys, ["analyze", str(p), "--iq-correct"], "in audio mode")
+        assert f"(the default for {p}: no --mode given, and the recording names none)" in err
+
+    def test_recorded_mode_counts_but_its_sidecar_never_fails(self, tmp_path, capsys):
+        # an I/Q recording from `swingmeter record` carries sideband 'upper' in its
+        # sidecar: analysing it is fine; typing --sideband is refused
+        p = write_iq_with_sidecar(tmp_path / "iq.wav")
+        d = run_json(capsys, "analyze", str(p), "--json")
+        assert d["mode"] == "iq"
+        d = run_json(capsys, "analyze", str(p), "--iq-correct", "--harmonic", "2", "--json")
+        assert d["mode"] == "iq" and d["iq"]["corrected"] is True
+        lower = write_iq_with_sidecar(tmp_path / "iq-lower.wav", sideband="lower")
+        assert run_json(capsys, "analyze", str(lower), "--json")["mode"] == "iq"
+        self._refused(
+            capsys,
+            ["analyze", str(p), "--sideband", "lower"],
+            f"--sideband has no effect in iq mode ({p} was recorded in iq mode)",
+            "RF = centre + offset",
+        )
+        # one recording of several is enough to refuse; the one named is that one
+        a = write_tone(tmp_path / "a.wav")
+        err = self._refused(capsys, ["analyze", str(p), str(a), "--iq-correct"], str(a))
+        assert "in audio mode" in err
+
+    def test_profile_deemphasis_still_reads_audio_deviation(self, capsys):
+        # the receiver's de-emphasis of audio mode comes from `calibrate deviation`,
+        # whose --deemphasis is its own option and keeps working
+        d = run_json(
+            capsys, "calibrate", "deviation", "--audio", str(DEMO / "rx-fm-null.wav"),
+            "--deviation", "2404.83", "--deemphasis", "50us", "--profile", "rx", "--json",
+        )  # fmt: skip
+        assert d["deemphasis"] == "50us"
+        d = run_json(capsys, "analyze", str(DEMO / "rx-fm-adjusted.wav"), "--profile", "rx",
+                     "--json")  # fmt: skip
+        assert d["deviation"]["receiver_deemphasis"] == "50us"
+        assert d["deviation"]["tone_peak_hz"] == pytest.approx(3000.0, rel=0.01)
+
+    def test_valid_fm_commands_still_run(self, capsys):
+        # the demo's own commands (recordings_demo/README.md)
+        d = run_json(
+            capsys, "analyze", str(DEMO / "to7-beat.wav"), "--mode", "beat", "--dial",
+            "97.29M", "--sideband", "upper", "--harmonic", "3", "--json",
+        )  # fmt: skip
+        assert d["fm"]["rf_hz"] == pytest.approx(97.3e6, abs=5.0)
+        assert d["fm"]["sideband"] == "upper"
+        d = run_json(
+            capsys, "analyze", str(DEMO / "to7-iq.wav"), "--mode", "iq", "--dial", "97.288M",
+            "--harmonic", "3", "--iq-correct", "--deemphasis", "none", "--json",
+        )  # fmt: skip
+        assert d["fm"]["rf_hz"] == pytest.approx(97.3e6, abs=5.0)
+        assert d["iq"]["corrected"] is True
+
+    def test_live_headless_refuses(self, tmp_path, capsys):
+        p = str(write_tone(tmp_path / "a.wav"))
+        argv = ["live", "--no-window", "--file", p, "--mode", "iq", "--sideband", "lower"]
+        self._refused(capsys, argv, "--sideband has no effect in iq mode:")
+        argv = ["live", "--no-window", "--file", p, "--dial", "7M"]
+        self._refused(capsys, argv, "--dial has no effect in audio mode")
+
+    def test_live_window_keeps_its_controls_for_another_mode(self):
+        # the window's mode can change: dial, sideband and harmonic are kept for it (and
+        # beat/iq demodulator settings are carried between beat and iq); demodulator
+        # settings given with an audio start are dropped, so they are refused
+        for extra in (["--sideband", "lower"], ["--dial", "7M", "--harmonic", "2"]):
+            assert refused(["live", "--mode", "audio", *extra]) is None
+            assert refused(["live", "--mode", "iq", *extra]) is None
+        assert refused(["live", "--mode", "beat", "--iq-correct"]) is None
+        msg = refused(["live", "--iq-correct"])
+        assert msg.startswith("--iq-correct has no effect in audio mode (the default mode)")
+        msg = refused(["live", "--mode", "audio", "--post-filter", "none"])
+        assert msg.startswith("--post-filter has no effect in audio mode:")
+
+    def test_record_refuses_before_opening_a_device(self, tmp_path, capsys):
+        out = tmp_path / "x.wav"
+        argv = ["record", "--mode", "iq", "--sideband", "lower", "--duration", "1", str(out)]
+        self._refused(capsys, argv, "--sideband has no effect in iq mode:")
+        argv = ["record", "--sideband", "lower", "--duration", "1", str(out)]
+        self._refused(capsys, argv, "in audio mode (the default mode)", "--mode beat")
+        assert not out.exists()
+        # record's defaults (sideband upper, harmonic 1) are not typed: nothing refused
+        assert refused(["record", "--mode", "iq", "--dial", "7M", "--duration", "1", "x"]) is None
+        argv = ["record", "--mode", "beat", "--sideband", "lower", "--harmonic", "2"]
+        assert refused([*argv, "--dial", "7M", "--duration", "1", "x.wav"]) is None
+
+    def test_report_refuses(self, tmp_path, capsys):
+        p = str(write_tone(tmp_path / "a.wav"))
+        argv = ["report", p, "-o", str(tmp_path / "r.html"), "--mode", "beat", "--iq-correct"]
+        self._refused(capsys, argv, "--iq-correct has no effect in beat mode:")
+        assert not (tmp_path / "r.html").exists()
 
 
 class TestCalibrateClock:
