@@ -16,7 +16,7 @@ HELP = "measure recordings: frequency with uncertainty, level, audio quality"
 EPILOG = """\
 examples:
   swingmeter analyze tone.wav
-  swingmeter analyze to7-beat.wav --mode beat --dial 97.3M --sideband upper --harmonic 3
+  swingmeter analyze to7-beat.wav --mode beat --dial 97.29M --sideband upper --harmonic 3
   swingmeter analyze capture.sigmf-meta --mode iq --iq-correct --json
   swingmeter analyze tone.wav --near 1000 --gate 0.5 --readings --json
   swingmeter analyze rx-audio.wav --filter psophometric --csv readings.csv
