@@ -58,6 +58,9 @@ TONE_GAIN_WARN = 0.1
 # channels give 0 dB, where even a poor quadrature mixer gives 15-25 dB (common practice).
 # (Two unrelated channels cannot be told from I/Q by these statistics.)
 IQ_MIN_IMAGE_REJECTION_DB = 6.0
+# A signal at the band's edge whose lines fit one-tone FM this badly is folded there
+# (one-tone FM fits to 1e-3..1e-2 at 15-40 dB C/N in the tests).
+EDGE_BESSEL_RESIDUAL = 0.05
 # An IF band holding less of the signal's power than this gives no trustworthy deviation.
 IF_POWER_MIN_FRACTION = 0.9
 # Below this integrated CNR the discriminator output is mostly clicks.
@@ -210,19 +213,30 @@ def _gate_power(x: np.ndarray, fs_hz: float, kind: str):
     return freqs, p
 
 
+@dataclass(frozen=True)
+class CarrierGroup:
+    """A carrier's group of spectral lines in one gate (`find_carrier`)."""
+
+    centre_hz: float  # power-weighted centre: the coarse carrier
+    width_hz: float  # from the first line to the last, plus one line spacing
+    snr_db: float  # of the strongest line over the spectral floor
+    lines_hz: np.ndarray  # the group's lines
+    line_power: np.ndarray  # their powers (arbitrary units)
+    spacing_hz: float  # the typical spacing of its lines
+
+
 def find_carrier(
     x: np.ndarray, fs_hz: float, *, kind: str, near_hz: float | None = None, spectrum=None
-) -> tuple[float, float, float, np.ndarray]:
+) -> CarrierGroup:
     """Coarse carrier and signal width from one gate's spectrum.
 
     The carrier of symmetric FM is the centre of its group of lines (its own line may be
     nulled, a sideband may be the strongest). Take the significant spectral peaks, group
     neighbours whose gaps stay within 2.5 times the typical line spacing (so one nulled
     line does not split the group), keep the group holding the strongest peak (or the
-    peak nearest `near_hz`), and return its power-weighted centre, its width, the SNR
-    of its strongest peak and the frequencies of its lines: (centre_hz, width_hz, snr_db,
-    lines_hz). `spectrum` is the gate's (freqs, power) from `_gate_power`, when the
-    caller has it already.
+    peak nearest `near_hz`), and return it as a `CarrierGroup` (centre, width, SNR of its
+    strongest peak, its lines). `spectrum` is the gate's (freqs, power) from
+    `_gate_power`, when the caller has it already.
     """
     n = x.shape[0]
     freqs, p = spectrum if spectrum is not None else _gate_power(x, fs_hz, kind)
@@ -264,7 +278,7 @@ def find_carrier(
     idx = np.unique(np.clip(np.concatenate([group - 1, group, group + 1]), 0, p.size - 1))
     centre = float(np.sum(freqs[idx] * p[idx]) / np.sum(p[idx]))
     width = float(freqs[group[-1]] - freqs[group[0]]) + spacing * fs_hz / n
-    return centre, width, snr_db, freqs[group]
+    return CarrierGroup(centre, width, snr_db, freqs[group], p[group], spacing * fs_hz / n)
 
 
 def power_fraction_within(
@@ -290,6 +304,7 @@ class FmSetup:
     bandwidth_hz: float
     post_filter: str
     notes: tuple[str, ...] = ()
+    at_band_edge: bool = False  # its outer lines reach past the edge of the band
 
 
 class _MedianBins:
@@ -416,9 +431,11 @@ class FmProcessor:
                 "audio on two channels does); analyse it with --mode audio or --mode beat"
             )
         spectrum = _gate_power(x, self.fs, self.kind)  # one transform for both questions
-        centroid, width, _, lines = find_carrier(
+        group = find_carrier(
             x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz, spectrum=spectrum
         )
+        centroid, width, lines = group.centre_hz, group.width_hz, group.lines_hz
+        at_edge = self._check_band_edges(group, notes)
         if fms.if_bandwidth_hz is not None:
             bw = fms.if_bandwidth_hz
         else:
@@ -478,7 +495,44 @@ class FmProcessor:
                 f"--post-filter {post} needs a sample rate of at least {need:g} Hz "
                 f"(the recording has {self.fs:g} Hz)"
             )
-        return FmSetup(centroid, bw, post, tuple(notes))
+        return FmSetup(centroid, bw, post, tuple(notes), at_edge)
+
+    def _check_band_edges(self, group: CarrierGroup, notes: list[str]) -> bool:
+        """A signal reaching past the edge of the recording's band (0 Hz and fs/2 for a
+        beat note, +/-fs/2 for I/Q) is cut there or folded back onto itself. The extent
+        that holds 99% of the group's line power, seen from its centre, must fit inside
+        the band, or it is refused; when only the next line beyond that extent (under 1%
+        of the power) crosses the edge, a note says so. (A signal folded at the edge can
+        look narrower than it is: the note is the most a spectrum can tell there.)"""
+        half = self.fs / 2.0
+        lo_edge = 0.0 if self.kind == "real" else -half
+        f, pw, c = group.lines_hz, group.line_power, group.centre_hz
+        total = float(pw.sum())
+        if total <= 0 or f.size < 2:
+            return False
+        order = np.argsort(np.abs(f - c))
+        held = np.cumsum(pw[order]) / total
+        d99 = float(np.abs(f - c)[order][int(np.searchsorted(held, 0.99))])
+        room = min(c - lo_edge, half - c)
+        edge = "0 Hz" if c - lo_edge < half - c and self.kind == "real" else None
+        edge = edge or (f"{-half:g} Hz" if c - lo_edge < half - c else f"{half:g} Hz")
+        if d99 >= room:
+            raise InputError(
+                f"{self.meta.source}: the signal around {c:.0f} Hz reaches past the edge of "
+                f"the recording's band at {edge} (99% of its power lies within "
+                f"+/-{d99:.0f} Hz of it): the rest is cut off or folded back, so carrier and "
+                "deviation cannot be measured; tune the receiver so the signal sits inside "
+                "the band" + (", or record at a higher sample rate" if d99 > 0.4 * half else "")
+            )
+        if d99 + group.spacing_hz >= room:
+            notes.append(
+                f"the signal's outer lines (under 1% of its power) reach past the band edge "
+                f"at {edge} and fold back: figures may be off by about that much, more if "
+                "the folding hides more of it; a signal nearer the middle of the band "
+                "is safer"
+            )
+            return True
+        return False
 
     def configure(self, setup: FmSetup, *, start_frame: int = 0) -> None:
         """Build the demodulator and the filters for `setup`; `start_frame` > 0 makes
@@ -1116,6 +1170,17 @@ class FmProcessor:
                 f"carrier-to-noise ratio {s.cnr_db:.1f} dB: the discriminator output is noisy "
                 "and peak deviation reads high"
             )
+        if (
+            self.setup.at_band_edge
+            and s.bessel is not None
+            and s.bessel.residual > EDGE_BESSEL_RESIDUAL
+        ):
+            out.append(
+                f"the lines do not fit FM by one tone (Bessel fit residual "
+                f"{s.bessel.residual:.2g}) and the signal reaches the band's edge: it is "
+                "folded there, so the carrier, deviation and index above are NOT to be "
+                "trusted; tune the signal towards the middle of the band"
+            )
         rf_note = rf_warning(self.meta, s.carrier_hz)
         if rf_note is not None:
             out.append(rf_note)
@@ -1211,6 +1276,7 @@ def make_processor(meta: StreamMeta, settings) -> FmProcessor:
 
 
 __all__ = [
+    "CarrierGroup",
     "FmProcessor",
     "FmSettings",
     "FmSetup",

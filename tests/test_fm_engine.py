@@ -381,6 +381,32 @@ class TestBadInput:
         p = beat_fm(ffmpeg, tmp_path / "fm.wav")
         self._fails(capsys, "analyze", str(p), "--mode", "iq", match="--mode iq needs a stereo")
 
+    def test_signal_past_the_band_edge_is_refused(self, ffmpeg, tmp_path, capsys):
+        # carrier 1000 Hz, beta 8 at 200 Hz: Carson half-width (beta + 1) fm = 1800 Hz
+        # (Federal Standard 1037C) reaches far below 0 Hz
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=1000.0, beta=8.0, fm=200.0)
+        self._fails(
+            capsys, "analyze", str(p), "--mode", "beat", match="reaches past the edge",
+        )  # fmt: skip
+
+    @pytest.mark.parametrize(("carrier", "beta", "fm"), [(600.0, 1.5, 300.0), (1500.0, 3.0, 500.0)])
+    def test_folded_signal_is_flagged(self, ffmpeg, tmp_path, carrier, beta, fm):
+        # lines below 0 Hz fold back onto the others (600 Hz, beta 1.5 at 300 Hz: -300
+        # and -600 Hz land on 300 and 600 Hz), so the spectrum looks narrower than it is
+        # and its lines no longer fit one-tone FM: the figures are said not to be trusted
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=carrier, beta=beta, fm=fm)
+        a, _ = fm_summary(p, "beat")
+        assert any("NOT to be trusted" in w for w in a.summary.warnings)
+
+    def test_outer_lines_at_the_edge_are_noted_only(self, ffmpeg, tmp_path):
+        # beta 2 at 3 kHz on a 10 kHz carrier: the 4th lines (J4(2)^2 = 0.1% of the power
+        # each, scipy.special.jv) fall at -2 kHz; the figures stay within 0.5%
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=10000.0, beta=2.0, fm=3000.0)
+        a, fm = fm_summary(p, "beat", if_bandwidth_hz=19000.0)
+        assert fm["mod_index"] == pytest.approx(2.0, rel=0.005)
+        assert any("outer lines" in w for w in a.summary.warnings)
+        assert not any("NOT to be trusted" in w for w in a.summary.warnings)
+
     @pytest.mark.parametrize("sign", [1.0, -1.0])
     def test_two_channel_audio_as_iq(self, ffmpeg, tmp_path, capsys, sign):
         # an ffmpeg beat note copied to both channels (or inverted in one): image
