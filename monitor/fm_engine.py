@@ -282,11 +282,26 @@ def find_carrier(
 
 
 def power_fraction_within(
-    x: np.ndarray, fs_hz: float, kind: str, lo_hz: float, hi_hz: float, *, spectrum=None
+    x: np.ndarray,
+    fs_hz: float,
+    kind: str,
+    lo_hz: float,
+    hi_hz: float,
+    *,
+    spectrum=None,
+    of: tuple[float, float] | None = None,
 ):
-    """Share of the signal's power (above the noise floor) between lo_hz and hi_hz."""
+    """Share of the signal's power (above the noise floor) between lo_hz and hi_hz: of
+    all the power in the gate, or of the power between the bounds `of` and in the band
+    (one signal's share when the recording holds others)."""
     freqs, p = spectrum if spectrum is not None else _gate_power(x, fs_hz, kind)
     p = np.maximum(p - np.median(p), 0.0)  # the noise floor is not signal
+    if of is not None:
+        p = np.where(
+            ((freqs >= of[0]) & (freqs <= of[1])) | ((freqs >= lo_hz) & (freqs <= hi_hz)),
+            p,
+            0.0,
+        )
     total = float(p.sum())
     if total <= 0:
         return 1.0
@@ -469,9 +484,27 @@ class FmProcessor:
                 f"tone above half of it would be filtered out and the deviation read as "
                 f"zero); widen --if-bandwidth to at least {2.4 * d1:.0f} Hz"
             )
+        # the signal's own power: its group of lines (another signal in the recording,
+        # outside the group, is not this one's and is left out)
+        pad = 2.0 * group.spacing_hz
         inside = power_fraction_within(
-            x, self.fs, self.kind, centroid - bw / 2, centroid + bw / 2, spectrum=spectrum
+            x,
+            self.fs,
+            self.kind,
+            centroid - bw / 2,
+            centroid + bw / 2,
+            spectrum=spectrum,
+            of=(float(lines.min()) - pad, float(lines.max()) + pad),
         )
+        lo_own = min(float(lines.min()) - pad, centroid - bw / 2)
+        hi_own = max(float(lines.max()) + pad, centroid + bw / 2)
+        own = power_fraction_within(x, self.fs, self.kind, lo_own, hi_own, spectrum=spectrum)
+        if own < IF_POWER_MIN_FRACTION:
+            notes.append(
+                f"{100 * (1 - own):.0f}% of the recording's power lies in other signals, "
+                f"outside {lo_own:.0f}-{hi_own:.0f} Hz, which are left out (--carrier-near "
+                "HZ picks another)"
+            )
         if inside < IF_POWER_MIN_FRACTION:
             raise InputError(
                 f"{self.meta.source}: the IF bandwidth {bw:g} Hz around the carrier at "

@@ -126,6 +126,23 @@ class TestBeat:
         assert fm["cnr_db"] == pytest.approx(np.median(cnrs), abs=CNR_MEDIAN_STEP_DB / 2)
 
 
+class TestSeveralSignals:
+    def test_carrier_near_picks_one_of_two(self, ffmpeg, tmp_path):
+        # ffmpeg: FM at 8 kHz (beta 1.5 at 1 kHz) plus an unmodulated carrier at 16 kHz of
+        # the same level; each is measured on its own, the other left out and said so
+        p = tmp_path / "two.wav"
+        expr = "0.3*sin(2*PI*8000*t+1.5*sin(2*PI*1000*t))+0.3*sin(2*PI*16000*t)"
+        ffmpeg("-f", "lavfi", "-i", f"aevalsrc={expr}:s=48000:d=3", "-c:a", "pcm_f32le", p)
+        a, fm = fm_summary(p, "beat", carrier_near_hz=8000.0)
+        assert fm["carrier_hz"] == pytest.approx(8000.0, abs=1e-3)
+        assert fm["mod_index"] == pytest.approx(1.5, rel=0.005)
+        assert any("other signals" in w for w in a.summary.warnings)
+        a, fm = fm_summary(p, "beat", carrier_near_hz=16000.0)
+        assert fm["carrier_hz"] == pytest.approx(16000.0, abs=1e-3)
+        assert fm["mod_index"] is None  # a plain carrier: no tone, no index
+        assert fm["deviation"]["rms_hz"] < 1.0
+
+
 class TestToneThroughPostFilter:
     """The tone's deviation and the modulation index are the carrier's, whatever the post
     filter and de-emphasis do to the demodulated audio (their gain at the tone is divided
