@@ -93,6 +93,7 @@ class Reading:
     deviation_peak_neg_hz: float | None = None
     deviation_peak_avg_hz: float | None = None
     deviation_rms_hz: float | None = None
+    deviation_rms_sqrt2_hz: float | None = None  # RMS x sqrt(2): a sine's peak from its RMS
     deviation_hold_hz: float | None = None  # peak |deviation| held since the start
     mod_tone_hz: float | None = None
     mod_index: float | None = None
@@ -535,6 +536,7 @@ class _AudioDeviation:
             "deviation_peak_neg_hz": f.peak_neg_hz * k,
             "deviation_peak_avg_hz": f.peak_avg_hz * k,
             "deviation_rms_hz": f.rms_hz * k,
+            "deviation_rms_sqrt2_hz": f.rms_hz * k * math.sqrt(2.0),
             "deviation_hold_hz": self.hold * k,
         }
         if tone_hz is not None and 0 < tone_hz < self.fs / 2:

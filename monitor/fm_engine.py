@@ -817,6 +817,7 @@ class FmProcessor:
             deviation_peak_neg_hz=figs.peak_neg_hz * k,
             deviation_peak_avg_hz=figs.peak_avg_hz * k,
             deviation_rms_hz=figs.rms_hz * k,
+            deviation_rms_sqrt2_hz=figs.rms_hz * k * math.sqrt(2.0),
             deviation_hold_hz=c["hold"] * k,
             mod_tone_hz=None if tone is None else tone.frequency_hz * k,
             mod_index=None if tone is None else c["tone_amp"] / tone.frequency_hz,

@@ -75,6 +75,8 @@ class TestBeat:
         expected = 10 * np.log10((1600.0**2 / 2) / (19000.0**2 / 2))
         assert fm["mod_power_dbr"] == pytest.approx(expected, abs=0.05)
         assert all(r.mod_tone_hz == pytest.approx(800.0, abs=0.01) for r in a.readings)
+        # per gate too: RMS x sqrt(2) of a sine is its peak, the generator's 1600 Hz
+        assert all(within(r.deviation_rms_sqrt2_hz, 1600.0, abs_=1.0) for r in a.readings)
         # the summary dict is what dataclasses.asdict (the reference) makes of it
         import dataclasses
 
