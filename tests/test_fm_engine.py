@@ -128,6 +128,22 @@ class TestBeat:
         assert fm["cnr_db"] == pytest.approx(np.median(cnrs), abs=CNR_MEDIAN_STEP_DB / 2)
 
 
+class TestClockCorrection:
+    def test_every_frequency_scales_with_the_clock(self, ffmpeg, tmp_path, capsys):
+        # a card running 100 ppm fast: all frequencies (carrier, tone, deviation, RF
+        # offset) scale by 1 + 100e-6, as the counter's do; the index (a ratio) does not
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav")
+        argv = ["analyze", str(p), "--mode", "beat", "--dial", "97.291M", "--json"]
+        assert main([*argv, "--clock-ppm", "100"]) == 0
+        fm = json.loads(capsys.readouterr().out)["fm"]
+        s = 1 + 100e-6
+        assert fm["carrier_hz"] == pytest.approx(9000.0 * s, abs=1e-3)
+        assert fm["rf_hz"] == pytest.approx(97_291_000.0 + 9000.0 * s, abs=1e-3)
+        assert fm["mod_tone_hz"] == pytest.approx(800.0 * s, abs=1e-4)
+        assert fm["deviation"]["tone_peak_hz"] == pytest.approx(1600.0 * s, rel=2e-5)
+        assert fm["mod_index"] == pytest.approx(2.0, rel=2e-5)
+
+
 class TestSeveralSignals:
     def test_carrier_near_picks_one_of_two(self, ffmpeg, tmp_path):
         # ffmpeg: FM at 8 kHz (beta 1.5 at 1 kHz) plus an unmodulated carrier at 16 kHz of
