@@ -195,7 +195,7 @@ def fm_rows(summary: dict) -> list[tuple[str, str]]:
         )
     )
     if fm.get("mod_power_dbr") is not None:
-        over = "whole record" if fm.get("mod_power_whole_record") else "max over 60 s windows"
+        over = "whole record" if fm.get("mod_power_whole_record") else "max over any 60 s"
         rows.append(("modulation power", f"{fm['mod_power_dbr']:+.2f} dBr ({over}, ITU-R BS.412)"))
     filt = fm.get("post_filter", "none")
     de = fm.get("deemphasis", "none")

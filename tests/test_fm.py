@@ -424,9 +424,37 @@ class TestModulationPower:
         peak = np.where(t < 60, 19e3, 75e3)
         x = peak * np.sin(2 * np.pi * 10.0 * t)
         mp = modulation_power(x, fs)
-        assert not mp.whole_record and mp.n_windows == 2
+        # sliding windows at 1 s steps: starts 0, 1, ..., 90 s
+        assert not mp.whole_record and mp.n_windows == 91
         assert mp.window_s == pytest.approx(60.0)
         assert mp.power_dbr == pytest.approx(11.93, abs=0.01)
+
+    def test_19khz_sine_is_0_dbr(self):
+        # ITU-R BS.412 (references.md): a +/-19 kHz sine is the 0 dBr reference.
+        t = np.arange(int(150 * 100.0)) / 100.0
+        mp = modulation_power(19e3 * np.sin(2 * np.pi * 10.0 * t), 100.0)
+        assert not mp.whole_record
+        assert mp.power_dbr == pytest.approx(0.0, abs=0.01)
+
+    def test_burst_straddling_a_window_boundary(self):
+        # 150 s at 1 kHz, deviation 0 except a +/-5 kHz sine from t = 30 s to 90 s: BS.412
+        # takes any 60 s interval, so the burst is measured whole: 10 log10((5 kHz)^2 /
+        # (19 kHz)^2) = -11.60 dBr [computed from the definition]. The reference is the
+        # numpy maximum over all 60 s intervals starting on a 1 s step (cumsum of squares,
+        # brute force); back-to-back windows from t = 0 (numpy reshape) read ~3 dB low.
+        fs = 1000.0
+        t = np.arange(int(150 * fs)) / fs
+        x = np.where((t >= 30) & (t < 90), 5e3 * np.sin(2 * np.pi * 7.0 * t), 0.0)
+        w, step = 60000, 1000
+        cs = np.concatenate([[0.0], np.cumsum(x * x)])
+        starts = np.arange(0, x.size - w + 1, step)
+        ref = modulation_power_dbr(float(((cs[starts + w] - cs[starts]) / w).max()))
+        mp = modulation_power(x, fs)
+        assert mp.power_dbr == pytest.approx(ref, abs=0.01)
+        assert mp.power_dbr == pytest.approx(20 * math.log10(5 / 19), abs=0.01)
+        assert mp.n_windows == starts.size
+        back_to_back = modulation_power_dbr(float((x[:120000].reshape(2, w) ** 2).mean(1).max()))
+        assert mp.power_dbr - back_to_back == pytest.approx(10 * math.log10(2), abs=0.01)
 
     def test_short_record(self):
         t = np.arange(1000) / 100.0

@@ -211,22 +211,45 @@ def _splits(n, cuts):
     return list(itertools.pairwise(edges))
 
 
+def _sliding_power_reference(x, measured, fs, window_s, origin=0):
+    """BS.412 power the brute-force way (numpy cumsum over the samples): the largest mean
+    square of the measured samples over all intervals of W = round(window_s * fs) samples
+    starting on floor(k W / K) (K = min(60, W): a step of 1/60 window from clock index 0)
+    at or after `origin` and ending by the end of x (x[0] is at clock index origin).
+    Returns (mean square, number of intervals holding measured samples)."""
+    w = max(1, round(window_s * fs))
+    k = min(60, w)
+    starts = np.arange(0, (origin + x.size) * k // w + 2) * w // k
+    starts = starts[(starts >= origin) & (starts + w <= origin + x.size)] - origin
+    sq = np.where(measured, x, 0.0) ** 2
+    cs = np.concatenate([[0.0], np.cumsum(sq)])
+    cn = np.concatenate([[0], np.cumsum(measured)])
+    s, n = cs[starts + w] - cs[starts], cn[starts + w] - cn[starts]
+    held = n > 0
+    return float((s[held] / n[held]).max()), int(held.sum())
+
+
 class TestPowerMeterParts:
     @settings(max_examples=40, deadline=None)
-    @given(st.lists(st.integers(0, 3000), max_size=4), st.integers(0, 300))
-    def test_parts_merge_to_one_meter(self, cuts, skip):
+    @given(
+        st.lists(st.integers(0, 3000), max_size=4),
+        st.integers(0, 300),
+        st.sampled_from([60.0, 61.3]),
+    )
+    def test_parts_merge_to_one_meter(self, cuts, skip, window_s):
         # 3000 samples at 10 Hz, 60 s windows of 600 samples (BS.412's 60 s on a slow
-        # clock): a meter per part, started at its clock index and merged in order, gives
-        # exactly what one meter fed everything gives; the first `skip` samples are
+        # clock; 61.3 s: 613 samples, steps of 10 and 11 samples): a meter per
+        # part, started at its clock index (anywhere, not on a step) and merged in order,
+        # gives exactly what one meter fed everything gives; the first `skip` samples are
         # stepped over (a filter settling) in both.
         rng = np.random.default_rng(len(cuts) + skip)
-        x = 1000.0 * rng.standard_normal(3000)
-        one = ModulationPowerMeter(10.0)
+        x = 1000.0 * rng.standard_normal(3000) * np.repeat(rng.uniform(0.2, 2.0, 30), 100)
+        one = ModulationPowerMeter(10.0, window_s=window_s)
         one.skip(skip)
         one.update(x[skip:])
         joined = None
         for a, b in _splits(3000, [skip, *cuts]):
-            m = ModulationPowerMeter(10.0, start_index=a)
+            m = ModulationPowerMeter(10.0, window_s=window_s, start_index=a)
             if b <= skip:
                 m.skip(b - a)
             else:
@@ -236,20 +259,54 @@ class TestPowerMeterParts:
             else:
                 joined.merge(m)
         r1, r2 = one.result(), joined.result()
-        assert r2.n_windows == r1.n_windows == 5 - (skip >= 600)
+        assert r2.n_windows == r1.n_windows
         assert r2.whole_record == r1.whole_record
         assert r2.power_dbr == pytest.approx(r1.power_dbr, abs=1e-9)
+        ms, held = _sliding_power_reference(x, np.arange(3000) >= skip, 10.0, window_s)
+        assert r1.n_windows == held
+        assert r1.power_dbr == pytest.approx(modulation_power_dbr(ms), abs=1e-9)
 
-    def test_windows_against_numpy(self):
-        # The maximum over whole 600-sample windows, recomputed with numpy (reshape, mean
-        # of squares), in dBr re the mean square of a 19 kHz sine (ITU-R BS.412).
+    @pytest.mark.parametrize("window_s", [60.0, 61.3, 3.0])
+    @pytest.mark.parametrize("origin", [0, 7])
+    def test_sliding_windows_against_numpy(self, window_s, origin):
+        # The maximum over all windows starting on a step, recomputed by brute force with
+        # numpy (_sliding_power_reference), in dBr re the mean square of a 19 kHz sine
+        # (ITU-R BS.412); fed in uneven chunks with stretches skipped in the middle, and
+        # started off a step (origin 7: the first window starts at the next step, 10).
         rng = np.random.default_rng(2)
-        x = np.concatenate([5000.0 * rng.standard_normal(600), 9000.0 * rng.standard_normal(1300)])
+        x = np.concatenate([5000.0 * rng.standard_normal(700), 9000.0 * rng.standard_normal(1300)])
+        measured = np.ones(x.size, bool)
+        measured[850:990] = measured[1500:1503] = False
+        m = ModulationPowerMeter(10.0, window_s=window_s, start_index=origin)
+        edges = [0, 1, 333, 850, 990, 1234, 1500, 1503, 1999, 2000]
+        for a, b in itertools.pairwise(edges):
+            if measured[a]:
+                m.update(x[a:b])
+            else:
+                m.skip(b - a)
+        ms, held = _sliding_power_reference(x, measured, 10.0, window_s, origin)
+        r = m.result()
+        assert r.power_dbr == pytest.approx(modulation_power_dbr(ms), abs=1e-9)
+        assert r.n_windows == held and not r.whole_record
+        assert m.step_s == pytest.approx(window_s / 60 if window_s > 6 else 0.1, rel=1e-3)
+
+    def test_skipped_samples_weigh_nothing(self):
+        # Skipped samples move the clock but add nothing: a window's power is the mean
+        # square of the samples it holds (numpy), not diluted by the skipped ones; windows
+        # holding nothing are not windows, and with none left the whole record counts.
         m = ModulationPowerMeter(10.0)
-        m.update(x)
-        ms = (x[:1800].reshape(3, 600) ** 2).mean(axis=1)
-        assert m.result().power_dbr == pytest.approx(modulation_power_dbr(ms.max()), abs=1e-12)
-        assert m.result().n_windows == 3
+        m.skip(1000)
+        m.update(np.full(300, 100.0))
+        m.skip(700)
+        r = m.result()
+        assert r.power_dbr == pytest.approx(modulation_power_dbr(1e4), abs=1e-12)
+        assert not r.whole_record and r.n_windows == 89  # starts 410, 420, ..., 1290
+        m = ModulationPowerMeter(10.0)
+        m.update(np.full(300, 100.0))
+        m.skip(299)
+        r = m.result()
+        assert r.whole_record and r.n_windows == 0
+        assert r.window_s == pytest.approx(30.0)
 
     def test_bad_input_leaves_the_meter_alone(self):
         m = ModulationPowerMeter(10.0)
@@ -265,6 +322,8 @@ class TestPowerMeterParts:
             a.merge(ModulationPowerMeter(10.0, start_index=50))
         with pytest.raises(ValueError, match="start_index=-1"):
             ModulationPowerMeter(10.0, start_index=-1)
+        with pytest.raises(ValueError, match="window lengths differ"):
+            a.merge(ModulationPowerMeter(10.0, window_s=30.0, start_index=100))
 
 
 class TestHistogramParts:
