@@ -517,6 +517,20 @@ class TestFitBessel:
         assert fit.peak_deviation_hz == pytest.approx(2404.8, abs=0.5)
         assert fit.residual < 1e-3
 
+    def test_first_sideband_null_ffmpeg(self, gen):
+        # A&S Table 9.5 / DLMF 10.21: first zero of J1 is 3.83171; at fm = 1 kHz the
+        # first sideband pair vanishes (> 40 dB below the unmodulated carrier) while the
+        # carrier line stands at |J0(3.83171)| = 0.4028 (-7.9 dB, scipy.special.jv)
+        # and the fit reads 3831.7 Hz of deviation
+        x = gen("null1s", "0.5*sin(2*PI*10000*t+3.83171*sin(2*PI*1000*t))", d=2.0)
+        amp = fm_line_amplitudes(x, FS, 10000.0, 1000.0, 9)
+        fit = fit_bessel(amp, mod_tone_hz=1000.0)
+        assert 20 * np.log10(amp[8] / 0.5) < -40.0 and 20 * np.log10(amp[10] / 0.5) < -40.0
+        assert amp[9] / 0.5 == pytest.approx(abs(sspec.jv(0, 3.83171)), abs=1e-3)
+        assert fit.mod_index == pytest.approx(3.83171, abs=1e-3)
+        assert fit.peak_deviation_hz == pytest.approx(3831.7, abs=1.0)
+        assert fit.residual < 1e-3
+
     def test_ffmpeg_beta2(self, gen):
         x = _beat(gen)
         fit = fit_bessel(fm_line_amplitudes(x, FS, 9000.0, 800.0, 8), mod_tone_hz=800.0)
