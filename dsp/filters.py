@@ -185,9 +185,10 @@ def sos_gain(sos: np.ndarray, f_hz: float, fs_hz: float) -> float:
     w = 2.0 * math.pi * f / fs
     z1 = complex(math.cos(w), -math.sin(w))  # z^-1 on the unit circle
     z2 = z1 * z1
-    num = sos[:, 0] + sos[:, 1] * z1 + sos[:, 2] * z2
-    den = sos[:, 3] + sos[:, 4] * z1 + sos[:, 5] * z2
-    return float(abs(np.prod(num / den)))
+    h = 1.0 + 0.0j
+    for b0, b1, b2, a0, a1, a2 in sos.tolist():  # a few sections: plain complex floats
+        h *= (b0 + b1 * z1 + b2 * z2) / (a0 + a1 * z1 + a2 * z2)
+    return abs(h)
 
 
 def _normalise(sos: np.ndarray, f_ref_hz: float, gain_ref: float, fs: float) -> np.ndarray:
