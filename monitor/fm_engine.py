@@ -54,10 +54,11 @@ SPECTRUM_STRIDE = 2
 # The tone's deviation is divided by the post chain's gain at the tone; below this gain
 # (-20 dB: a tone outside the filter's band) the summary says so.
 TONE_GAIN_WARN = 0.1
-# Below this image rejection (dB) two channels are no I/Q pair: identical (or inverted)
-# channels give 0 dB, where even a poor quadrature mixer gives 15-25 dB (common practice).
-# (Two unrelated channels cannot be told from I/Q by these statistics.)
-IQ_MIN_IMAGE_REJECTION_DB = 6.0
+# Two channels correlated beyond this (either sign) are no I/Q pair but one signal twice
+# (mono audio on both channels): I and Q of a quadrature mixer correlate as the sine of its
+# phase error (0.17 at 10 degrees), and a signal tuned onto 0 Hz, whose I/Q is far from
+# circular, correlates little too. (Two unrelated channels cannot be told from I/Q so.)
+IQ_MAX_CHANNEL_CORRELATION = 0.95
 # A signal at the band's edge whose lines fit one-tone FM this badly is folded there
 # (one-tone FM fits to 1e-3..1e-2 at 15-40 dB C/N in the tests).
 EDGE_BESSEL_RESIDUAL = 0.05
@@ -261,9 +262,14 @@ def find_carrier(
     else:
         k = int(keep[np.argmax(p[keep])])
     snr_db = 10 * math.log10(p[k] / floor)
-    # typical spacing of the lines around the chosen one
-    order = np.argsort(np.abs(keep - k))[:16]
-    near_lines = np.sort(keep[order])
+    # typical spacing of the lines around the chosen one, from those within 30 dB of it
+    # when there are a few (weak lines of another spacing, such as hum sidebands, would
+    # split the group), else from all (a small index: sidebands 30 dB or more down)
+    strong = keep[p[keep] >= p[k] * 1e-3]
+    if strong.size < 3:
+        strong = keep
+    order = np.argsort(np.abs(strong - k))[:16]
+    near_lines = np.sort(strong[order])
     gaps = np.diff(near_lines)
     spacing = float(np.median(gaps)) if gaps.size else 1.0
     max_gap = max(3.0, 2.5 * spacing)
@@ -439,18 +445,21 @@ class FmProcessor:
                 "the first gate; check the stereo connection, or analyse the other channel "
                 "with --mode beat"
             )
-        if health is not None and health.image_rejection_db < IQ_MIN_IMAGE_REJECTION_DB:
-            raise InputError(
-                f"{self.meta.source}: the two channels are not an I/Q pair (image rejection "
-                f"{health.image_rejection_db:.1f} dB: they carry the same signal, as mono "
-                "audio on two channels does); analyse it with --mode audio or --mode beat"
-            )
+        if health is not None:
+            rho = _channel_correlation(x)
+            if abs(rho) > IQ_MAX_CHANNEL_CORRELATION:
+                raise InputError(
+                    f"{self.meta.source}: the two channels are not an I/Q pair (they carry "
+                    f"the same signal{', one inverted' if rho < 0 else ''}: correlation "
+                    f"{rho:+.3f}, as mono audio on two channels does); analyse it with "
+                    "--mode audio or --mode beat"
+                )
         spectrum = _gate_power(x, self.fs, self.kind)  # one transform for both questions
         group = find_carrier(
             x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz, spectrum=spectrum
         )
         centroid, width, lines = group.centre_hz, group.width_hz, group.lines_hz
-        at_edge = self._check_band_edges(group, notes)
+        at_edge = self._check_band_edges(group, notes, self.fs / x.shape[0])
         if fms.if_bandwidth_hz is not None:
             bw = fms.if_bandwidth_hz
         else:
@@ -470,20 +479,7 @@ class FmProcessor:
                 )
         else:
             bw = min(bw, 0.8 * self.fs)
-        # The first sideband pair (the lines nearest the carrier, at +/- fm) outside the
-        # IF band: the tone would be filtered out whole and the deviation read as zero,
-        # however little power the sidebands hold.
-        bin_hz = self.fs / x.shape[0]
-        away = np.abs(lines - centroid)
-        side = away[away > 2.5 * bin_hz]
-        if side.size and float(side.min()) > bw / 2:
-            d1 = float(side.min())
-            raise InputError(
-                f"{self.meta.source}: the sidebands nearest the carrier at {centroid:.1f} Hz "
-                f"lie {d1:.0f} Hz away, outside the IF bandwidth {bw:g} Hz (a modulating "
-                f"tone above half of it would be filtered out and the deviation read as "
-                f"zero); widen --if-bandwidth to at least {2.4 * d1:.0f} Hz"
-            )
+        self._refuse_cut_sidebands(group, bw, self.fs / x.shape[0])
         # the signal's own power: its group of lines (another signal in the recording,
         # outside the group, is not this one's and is left out)
         pad = 2.0 * group.spacing_hz
@@ -498,10 +494,10 @@ class FmProcessor:
         )
         lo_own = min(float(lines.min()) - pad, centroid - bw / 2)
         hi_own = max(float(lines.max()) + pad, centroid + bw / 2)
-        own = power_fraction_within(x, self.fs, self.kind, lo_own, hi_own, spectrum=spectrum)
-        if own < IF_POWER_MIN_FRACTION:
+        other = _other_lines_share(spectrum, lo_own, hi_own)
+        if other > 1.0 - IF_POWER_MIN_FRACTION:
             notes.append(
-                f"{100 * (1 - own):.0f}% of the recording's power lies in other signals, "
+                f"{100 * other:.0f}% of the recording's power lies in other signals, "
                 f"outside {lo_own:.0f}-{hi_own:.0f} Hz, which are left out (--carrier-near "
                 "HZ picks another)"
             )
@@ -530,7 +526,67 @@ class FmProcessor:
             )
         return FmSetup(centroid, bw, post, tuple(notes), at_edge)
 
-    def _check_band_edges(self, group: CarrierGroup, notes: list[str]) -> bool:
+    def _sideband_pairs(self, group: CarrierGroup, bin_hz: float):
+        """The group's sideband pairs as [(offset_hz, power, cut_by_edge)]: FM's
+        sidebands come in pairs at carrier +/- k fm of equal size (|J_-k| = |J_k|), so a
+        line with a mirror line about the centre is one (a lone line, such as a harmonic
+        of the carrier, is not); so is a line whose mirror falls at or past the edge of
+        the recording's band (its partner cut off there)."""
+        c, f, pw = group.centre_hz, group.lines_hz, group.line_power
+        half = self.fs / 2.0
+        lo_edge = 0.0 if self.kind == "real" else -half
+        d = f - c
+        tol = np.maximum(3.0 * bin_hz, 0.05 * np.abs(d))
+        pairs = []
+        total = float(pw.sum())
+        for i in np.nonzero(np.abs(d) > tol)[0]:
+            mirror = c - d[i]
+            if mirror <= lo_edge + tol[i] or mirror >= half - tol[i]:
+                # partner cut off, unless the line is a harmonic of the carrier (at k c)
+                # or too weak to matter (-40 dB of the group)
+                k = round(f[i] / c) if c else 0
+                harmonic = k >= 2 and abs(f[i] - k * c) <= tol[i]
+                if not harmonic and pw[i] > 1e-4 * total:
+                    pairs.append((abs(float(d[i])), 2.0 * float(pw[i]), True))
+                continue
+            if d[i] < 0:
+                continue  # a pair inside the band is counted once, from its upper line
+            j = int(np.argmin(np.abs(d + d[i])))  # the line nearest the mirror image
+            if abs(d[j] + d[i]) <= tol[i]:
+                pairs.append((float(d[i]), float(pw[i] + pw[j]), False))
+        return pairs
+
+    def _refuse_cut_sidebands(self, group: CarrierGroup, bw: float, bin_hz: float) -> None:
+        """Refuse an IF band (or a band edge) that cuts the modulation: when the sideband
+        pairs outside the IF band hold more power than those inside, the tone is (mostly)
+        filtered out and the deviation would read near zero, however little power the
+        sidebands hold against the carrier (beta 0.2: 2%, which the IF share passes)."""
+        pairs = self._sideband_pairs(group, bin_hz)
+        out = [(d, pw) for d, pw, cut in pairs if cut or d > bw / 2]
+        inside = sum(pw for d, pw, cut in pairs if not cut and d <= bw / 2)
+        if not out or sum(pw for _, pw in out) <= inside:
+            return
+        c = group.centre_hz
+        first_out = min(d for d, _ in out)
+        want = 2.4 * first_out
+        room = min(c, self.fs / 2 - c) if self.kind == "real" else self.fs / 2 - abs(c)
+        ask = (
+            f"widen --if-bandwidth to at least {want:.0f} Hz"
+            if want / 2 < room * 0.95
+            else (
+                f"a band that wide ({want:.0f} Hz) does not fit around the carrier in this "
+                "recording: tune the signal towards the middle of the band"
+                + (" or record at a higher sample rate" if want > self.fs / 2 else "")
+            )
+        )
+        raise InputError(
+            f"{self.meta.source}: the sidebands of the signal at {c:.1f} Hz lie from "
+            f"{first_out:.0f} Hz away, outside the IF bandwidth {bw:g} Hz or the "
+            "recording's band (a modulating tone there would be filtered out and the "
+            f"deviation read as zero); {ask}"
+        )
+
+    def _check_band_edges(self, group: CarrierGroup, notes: list[str], bin_hz: float) -> bool:
         """A signal reaching past the edge of the recording's band (0 Hz and fs/2 for a
         beat note, +/-fs/2 for I/Q) is cut there or folded back onto itself. The extent
         that holds 99% of the group's line power, seen from its centre, must fit inside
@@ -541,8 +597,8 @@ class FmProcessor:
         lo_edge = 0.0 if self.kind == "real" else -half
         f, pw, c = group.lines_hz, group.line_power, group.centre_hz
         total = float(pw.sum())
-        if total <= 0 or f.size < 2:
-            return False
+        if total <= 0 or f.size < 2 or not self._sideband_pairs(group, bin_hz):
+            return False  # a lone carrier (perhaps with harmonics): nothing to fold
         order = np.argsort(np.abs(f - c))
         held = np.cumsum(pw[order]) / total
         d99 = float(np.abs(f - c)[order][int(np.searchsorted(held, 0.99))])
@@ -1293,6 +1349,30 @@ class _levels:
     def carrier_dbfs(self) -> float:
         ms = self.sum_abs2 / max(1, self.n)
         return 10 * math.log10(ms) if ms > 0 else -math.inf
+
+
+def _channel_correlation(z: np.ndarray) -> float:
+    """Normalised correlation of the I and Q rails of a gate (means removed)."""
+    i = z.real - z.real.mean()
+    q = z.imag - z.imag.mean()
+    den = math.sqrt(float(np.dot(i, i)) * float(np.dot(q, q)))
+    return float(np.dot(i, q)) / den if den > 0 else 0.0
+
+
+def _other_lines_share(spectrum, lo_hz: float, hi_hz: float) -> float:
+    """Share of a gate's power above the noise floor held by other signals' lines outside
+    lo_hz..hi_hz: bins standing CARRIER_MIN_SNR_DB above the median floor, with their two
+    neighbours each side (a Hann window's main lobe); noise alone gives about none."""
+    freqs, p = spectrum
+    floor = float(np.median(p))
+    excess = np.maximum(p - floor, 0.0)
+    total = float(excess.sum())
+    if total <= 0:
+        return 0.0
+    strong = (p > floor * 10 ** (CARRIER_MIN_SNR_DB / 10)) & ((freqs < lo_hz) | (freqs > hi_hz))
+    lobe = np.convolve(strong.astype(np.int8), np.ones(5, dtype=np.int8), mode="same") > 0
+    lobe &= (freqs < lo_hz) | (freqs > hi_hz)
+    return float(excess[lobe].sum()) / total
 
 
 def _iq_health_or_none(z):

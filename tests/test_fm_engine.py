@@ -144,6 +144,68 @@ class TestClockCorrection:
         assert fm["mod_index"] == pytest.approx(2.0, rel=2e-5)
 
 
+def _ffmpeg_wav(ffmpeg, path, expr, rate=48000, dur=3):
+    ffmpeg("-f", "lavfi", "-i", f"aevalsrc={expr}:s={rate}:d={dur}", "-c:a", "pcm_f32le", path)
+    return path
+
+
+class TestLegitimateSignalsPass:
+    """The set-up's refusals turn away no legitimate recording (ffmpeg signals; truths
+    from the generator's expressions)."""
+
+    @pytest.mark.parametrize(
+        ("expr", "rate", "beta"),
+        [
+            # FM with hum on it as FM (-40 dB lines of another spacing) and as AM
+            ("0.3*sin(2*PI*9000*t+2*sin(2*PI*800*t)+0.02*sin(2*PI*50*t))", 48000, 2.0),
+            ("0.3*(1+0.01*sin(2*PI*50*t))*sin(2*PI*9000*t+2*sin(2*PI*800*t))", 48000, 2.0),
+            # a small index (sidebands 32 dB down), a large one, near both band edges
+            ("0.3*sin(2*PI*9000*t+0.05*sin(2*PI*1000*t))", 48000, 0.05),
+            ("0.3*sin(2*PI*9000*t+8*sin(2*PI*500*t))", 48000, 8.0),
+            ("0.3*sin(2*PI*1500*t+0.5*sin(2*PI*300*t))", 48000, 0.5),
+            ("0.3*sin(2*PI*20000*t+1*sin(2*PI*1000*t))", 48000, 1.0),
+            ("0.3*sin(2*PI*2000*t+1*sin(2*PI*400*t))", 8000, 1.0),
+            # with its 2nd harmonic 23 dB down (an overdriven stage)
+            ("0.3*sin(2*PI*9000*t+2*sin(2*PI*800*t))+0.02*sin(2*PI*18000*t+4*sin(2*PI*800*t))",
+             48000, 2.0),
+        ],
+    )  # fmt: skip
+    def test_beat(self, ffmpeg, tmp_path, expr, rate, beta):
+        p = _ffmpeg_wav(ffmpeg, tmp_path / "x.wav", expr, rate)
+        a, fm = fm_summary(p, "beat")
+        assert fm["mod_index"] == pytest.approx(beta, rel=0.005)
+        assert not any("NOT to be trusted" in w for w in a.summary.warnings)
+
+    @pytest.mark.parametrize(
+        "expr",
+        ["0.3*sin(2*PI*9000*t)+0.003*sin(2*PI*18000*t)",  # a carrier and its harmonics
+         "0.3*sin(2*PI*1000*t)+0.001*sin(2*PI*2000*t)+0.0003*sin(2*PI*3000*t)"],
+    )  # fmt: skip
+    def test_carrier_with_harmonics(self, ffmpeg, tmp_path, expr):
+        p = _ffmpeg_wav(ffmpeg, tmp_path / "x.wav", expr)
+        _, fm = fm_summary(p, "beat")
+        f0 = 9000.0 if "9000" in expr else 1000.0
+        assert fm["carrier_hz"] == pytest.approx(f0, abs=1e-6)
+        assert fm["mod_index"] is None
+
+    def test_iq_tuned_onto_the_carrier(self, ffmpeg, tmp_path):
+        # offset 0 Hz, beta 0.2 at 1 kHz: I and Q are far from circular (I nearly DC),
+        # but they are an I/Q pair
+        expr = "0.4*cos(0.2*sin(2*PI*1000*t))|0.4*sin(0.2*sin(2*PI*1000*t))"
+        p = _ffmpeg_wav(ffmpeg, tmp_path / "x.wav", expr)
+        _, fm = fm_summary(p, "iq")
+        assert fm["mod_index"] == pytest.approx(0.2, rel=0.005)
+
+    def test_noise_is_not_another_signal(self, ffmpeg, tmp_path, rng):
+        # an ffmpeg carrier at 3 dB SNR (numpy noise): no "other signals" note
+        x, fs = sf.read(_ffmpeg_wav(ffmpeg, tmp_path / "x.wav", "0.3*sin(2*PI*9000*t)"))
+        p = tmp_path / "n.wav"
+        sf.write(p, x + rng.normal(0.0, 0.15, x.size), fs, subtype="FLOAT")
+        a, fm = fm_summary(p, "beat")
+        assert fm["carrier_hz"] == pytest.approx(9000.0, abs=0.01)
+        assert not any("other signals" in w for w in a.summary.warnings)
+
+
 class TestSeveralSignals:
     def test_carrier_near_picks_one_of_two(self, ffmpeg, tmp_path):
         # ffmpeg: FM at 8 kHz (beta 1.5 at 1 kHz) plus an unmodulated carrier at 16 kHz of
@@ -425,13 +487,15 @@ class TestBadInput:
         )  # fmt: skip
 
     @pytest.mark.parametrize(("carrier", "beta", "fm"), [(600.0, 1.5, 300.0), (1500.0, 3.0, 500.0)])
-    def test_folded_signal_is_flagged(self, ffmpeg, tmp_path, carrier, beta, fm):
+    def test_folded_signal_is_refused(self, ffmpeg, tmp_path, capsys, carrier, beta, fm):
         # lines below 0 Hz fold back onto the others (600 Hz, beta 1.5 at 300 Hz: -300
-        # and -600 Hz land on 300 and 600 Hz), so the spectrum looks narrower than it is
-        # and its lines no longer fit one-tone FM: the figures are said not to be trusted
+        # and -600 Hz land on 300 and 600 Hz), so the spectrum looks narrower than it is;
+        # its sidebands' partners are missing at the band's edge: refused, with a way out
         p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=carrier, beta=beta, fm=fm)
-        a, _ = fm_summary(p, "beat")
-        assert any("NOT to be trusted" in w for w in a.summary.warnings)
+        self._fails(
+            capsys, "analyze", str(p), "--mode", "beat",
+            match="does not fit around the carrier in this recording",
+        )  # fmt: skip
 
     def test_outer_lines_at_the_edge_are_noted_only(self, ffmpeg, tmp_path):
         # beta 2 at 3 kHz on a 10 kHz carrier: the 4th lines (J4(2)^2 = 0.1% of the power
@@ -441,6 +505,24 @@ class TestBadInput:
         assert fm["mod_index"] == pytest.approx(2.0, rel=0.005)
         assert any("outer lines" in w for w in a.summary.warnings)
         assert not any("NOT to be trusted" in w for w in a.summary.warnings)
+
+    @pytest.mark.parametrize(
+        ("expr", "rate", "extra"),
+        [
+            # beta 0.2 at 3 kHz in a 4 kHz IF with faint hum: the hum's pair is inside
+            ("0.3*sin(2*PI*9000*t+0.2*sin(2*PI*3000*t)+0.01*sin(2*PI*50*t))", 48000,
+             ("--if-bandwidth", "4000")),
+            # the upper sideband on fs/2 (8 kHz): only the lower is in the band
+            ("0.3*sin(2*PI*3000*t+0.3*sin(2*PI*1000*t))", 8000, ()),
+            # the sidebands of a 700 Hz beat note at 100 and 1300 Hz: no IF fits
+            ("0.3*sin(2*PI*700*t+0.2*sin(2*PI*600*t))", 48000, ()),
+        ],
+    )  # fmt: skip
+    def test_sidebands_cut_by_if_or_band(self, ffmpeg, tmp_path, capsys, expr, rate, extra):
+        p = _ffmpeg_wav(ffmpeg, tmp_path / "x.wav", expr, rate)
+        self._fails(
+            capsys, "analyze", str(p), "--mode", "beat", *extra, match="sidebands of the signal"
+        )
 
     @pytest.mark.parametrize("sign", [1.0, -1.0])
     def test_two_channel_audio_as_iq(self, ffmpeg, tmp_path, capsys, sign):
