@@ -14,6 +14,7 @@ import sys
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 from monitor import __version__
 from monitor.errors import SwingmeterError
@@ -199,7 +200,9 @@ def refuse_idle_options(args, argv: Sequence[str] | None) -> None:
     fields never fail an analysis. The live window can change its mode, so there the
     stream fields of its controls (dial, sideband, harmonic) are kept for another mode,
     and the FM demodulator's settings are refused only when it starts in audio mode
-    (which drops them).
+    (which drops them); the recorder keeps the stream fields in its sidecar for a later
+    analysis in another mode. In a batch of recordings an option is refused only when
+    it acts on none of them; a recording that does not exist is left to the command.
 
     Raises
     ------
@@ -212,17 +215,24 @@ def refuse_idle_options(args, argv: Sequence[str] | None) -> None:
     typed = _typed_dests(argv, args.command, present | {"mode"})
     if not typed - {"mode"}:
         return
+    # the live window and the recorder keep the stream fields (dial, sideband, harmonic)
+    # for another mode: the window's controls; the sidecar of an audio recording, which a
+    # later analysis may read as a beat note. The window drops the demodulator's settings
+    # only when it starts in audio mode
     window = args.command == "live" and not args.no_window
-    for mode, path in _runs(args):
-        for opt in MODE_OPTIONS:
-            if opt.dest not in typed or mode in opt.modes:
-                continue
-            if window and (opt.window_keeps or mode != "audio"):
-                continue
-            why = "" if "mode" in typed else _whence(mode, path)
-            raise SwingmeterError(
-                f"{opt.flag} has no effect in {mode} mode{why}: {opt.advice[mode]}"
-            )
+    recorder = args.command == "record"
+    # a recording that does not exist is the command's to report, not this check's
+    runs = [(mode, path) for mode, path in _runs(args) if path is None or Path(path).exists()]
+    for opt in MODE_OPTIONS:
+        if opt.dest not in typed or not runs or any(mode in opt.modes for mode, _ in runs):
+            continue  # acts on at least one of the runs (a batch may mix modes)
+        mode, path = runs[0]
+        if window and (opt.window_keeps or mode != "audio"):
+            continue
+        if recorder and opt.window_keeps and mode == "audio":
+            continue
+        why = "" if "mode" in typed else _whence(mode, path)
+        raise SwingmeterError(f"{opt.flag} has no effect in {mode} mode{why}: {opt.advice[mode]}")
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:

@@ -331,9 +331,10 @@ class TestModeOptions:
             f"--sideband has no effect in iq mode ({p} was recorded in iq mode)",
             "RF = centre + offset",
         )
-        # one recording of several is enough to refuse; the one named is that one
+        # in a batch, an option that acts on one recording is not refused for another
         a = write_tone(tmp_path / "a.wav")
-        err = self._refused(capsys, ["analyze", str(p), str(a), "--iq-correct"], str(a))
+        assert refused(["analyze", str(p), str(a), "--iq-correct"]) is None
+        err = self._refused(capsys, ["analyze", str(a), "--iq-correct"], str(a))
         assert "in audio mode" in err
 
     def test_profile_deemphasis_still_reads_audio_deviation(self, capsys):
@@ -388,13 +389,36 @@ class TestModeOptions:
         out = tmp_path / "x.wav"
         argv = ["record", "--mode", "iq", "--sideband", "lower", "--duration", "1", str(out)]
         self._refused(capsys, argv, "--sideband has no effect in iq mode:")
-        argv = ["record", "--sideband", "lower", "--duration", "1", str(out)]
-        self._refused(capsys, argv, "in audio mode (the default mode)", "--mode beat")
         assert not out.exists()
+        # an audio recording keeps dial, sideband and harmonic in its sidecar, for a
+        # later analysis of it as a beat note (analyze --mode beat)
+        argv = ["record", "--sideband", "lower", "--dial", "7.03M", "--duration", "1", "x.wav"]
+        assert refused(argv) is None
         # record's defaults (sideband upper, harmonic 1) are not typed: nothing refused
         assert refused(["record", "--mode", "iq", "--dial", "7M", "--duration", "1", "x"]) is None
         argv = ["record", "--mode", "beat", "--sideband", "lower", "--harmonic", "2"]
         assert refused([*argv, "--dial", "7M", "--duration", "1", "x.wav"]) is None
+
+    def test_batch_of_modes_and_missing_files(self, tmp_path, capsys):
+        # a batch of an audio recording and a SigMF I/Q one (its datatype names the mode):
+        # --iq-correct acts on the second, so it is not refused; alone, the first refuses
+        from sigmf import SigMFFile
+
+        audio = str(write_tone(tmp_path / "a.wav"))
+        fs = 48000.0
+        t = np.arange(int(fs)) / fs
+        base = str(tmp_path / "cap")
+        (0.5 * np.exp(2j * np.pi * 5000 * t)).astype(np.complex64).tofile(base + ".sigmf-data")
+        SigMFFile(
+            data_file=base + ".sigmf-data",
+            global_info={"core:datatype": "cf32_le", "core:sample_rate": fs},
+        ).tofile(base + ".sigmf-meta")
+        assert refused(["analyze", audio, base + ".sigmf-meta", "--iq-correct"]) is None
+        assert "in audio mode" in refused(["analyze", audio, "--iq-correct"])
+        # a missing recording is the command's to report, not this check's
+        rc = main(["analyze", str(tmp_path / "nothere.wav"), "--dial", "7M"])
+        err = capsys.readouterr().err
+        assert rc != 0 and "has no effect" not in err and "nothere.wav" in err
 
     def test_report_refuses(self, tmp_path, capsys):
         p = str(write_tone(tmp_path / "a.wav"))
