@@ -164,6 +164,14 @@ class IqSummary:
     corrected: bool
 
 
+def _rf_reference(meta: StreamMeta) -> float | None:
+    """The frequency a carrier's offset is added to or taken from: the dial for a beat
+    note; for I/Q the centre (from SigMF metadata) or else the dial."""
+    if meta.mode == "iq":
+        return meta.center_hz if meta.center_hz is not None else meta.dial_hz
+    return meta.dial_hz
+
+
 def rf_from_carrier(meta: StreamMeta, carrier_hz: float) -> float | None:
     """RF frequency from the carrier found in the recording's band.
 
@@ -173,26 +181,24 @@ def rf_from_carrier(meta: StreamMeta, carrier_hz: float) -> float | None:
     below the beat note on the lower sideband: a wrong dial or sideband, which
     `rf_warning` says).
     """
-    if meta.mode == "iq":
-        center = meta.center_hz if meta.center_hz is not None else meta.dial_hz
-        rf = None if center is None else center + carrier_hz
-    elif meta.dial_hz is None:
-        rf = None
-    else:
-        rf = meta.dial_hz + carrier_hz if meta.sideband == "upper" else meta.dial_hz - carrier_hz
-    return rf if rf is None or rf > 0 else None
+    ref = _rf_reference(meta)
+    if ref is None:
+        return None
+    lower = meta.mode != "iq" and meta.sideband != "upper"
+    rf = ref - carrier_hz if lower else ref + carrier_hz
+    return rf if rf > 0 else None
 
 
 def rf_warning(meta: StreamMeta, carrier_hz: float) -> str | None:
     """Why a dial or centre that was given yields no RF frequency (None when it does)."""
-    given = meta.dial_hz if meta.mode == "beat" else (meta.center_hz or meta.dial_hz)
-    if given is None or rf_from_carrier(meta, carrier_hz) is not None:
+    ref = _rf_reference(meta)
+    if ref is None or rf_from_carrier(meta, carrier_hz) is not None:
         return None
     how = (
-        f"dial {given:.0f} Hz {'+' if meta.sideband == 'upper' else '-'} beat note "
+        f"dial {ref:.0f} Hz {'+' if meta.sideband == 'upper' else '-'} beat note "
         f"{carrier_hz:.1f} Hz"
-        if meta.mode == "beat"
-        else f"centre {given:.0f} Hz + offset {carrier_hz:.1f} Hz"
+        if meta.mode != "iq"
+        else f"centre {ref:.0f} Hz + offset {carrier_hz:.1f} Hz"
     )
     return f"no RF frequency: {how} is not a positive frequency (check --dial and --sideband)"
 
