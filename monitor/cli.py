@@ -143,6 +143,17 @@ MODE_OPTIONS = (
         },
     ),
     ModeOption(
+        "swap_iq",
+        "--swap-iq",
+        ("iq",),
+        {
+            mode: "it swaps the two channels of a stereo I/Q recording: use --mode iq for "
+            "one, else leave it out (--channel N picks a channel)"
+            for mode in ("audio", "beat")
+        },
+        window_keeps=True,  # a source setting the window keeps for a switch to iq
+    ),
+    ModeOption(
         "iq_correct",
         "--iq-correct",
         ("iq",),

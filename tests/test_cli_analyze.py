@@ -219,6 +219,7 @@ MODE_OPTION_VALUES = {
     "--post-filter": ["300-3000"],
     "--deemphasis": ["50us"],
     "--iq-correct": [],
+    "--swap-iq": [],
 }
 # (option, mode it does nothing in, a word of the advice)
 REFUSALS = [
@@ -232,6 +233,8 @@ REFUSALS = [
     ("--iq-correct", "audio", "--mode iq"),
     ("--iq-correct", "beat", "--mode iq"),
     ("--sideband", "iq", "both sidebands"),
+    ("--swap-iq", "audio", "--mode iq"),
+    ("--swap-iq", "beat", "--mode iq"),
 ]
 
 
