@@ -1425,7 +1425,7 @@ class ModulationPowerMeter:
                 sums.append(0.0)
                 cnts.append(0)
                 k += 1
-                nxt = (k + 1) * self._win // self._nblk
+                nxt = self._edge(k + 1)
         self._pos, self._next, self._k = pos, nxt, k
         self._all += total
         self._all_n += n

@@ -465,7 +465,8 @@ class FmProcessor:
             x, self.fs, kind=self.kind, near_hz=fms.carrier_near_hz, spectrum=spectrum
         )
         centroid, width, lines = group.centre_hz, group.width_hz, group.lines_hz
-        at_edge = self._check_band_edges(group, notes, self.fs / x.shape[0])
+        pairs = self._sideband_pairs(group, self.fs / x.shape[0])
+        at_edge = self._check_band_edges(group, pairs, notes)
         if fms.if_bandwidth_hz is not None:
             bw = fms.if_bandwidth_hz
         else:
@@ -473,7 +474,7 @@ class FmProcessor:
             bw = max(MIN_IF_BANDWIDTH_HZ, 1.3 * width + 100.0)
         if self.kind == "real":
             # keep the IF band inside (0, fs/2) with room for the filter's transition
-            room = min(centroid, self.fs / 2 - centroid)
+            room = self._room(centroid)
             if room <= 0:
                 raise InputError(f"carrier at {centroid:.1f} Hz is outside the band")
             if fms.if_bandwidth_hz is None:
@@ -485,7 +486,7 @@ class FmProcessor:
                 )
         else:
             bw = min(bw, 0.8 * self.fs)
-        self._refuse_cut_sidebands(group, bw, self.fs / x.shape[0])
+        self._refuse_cut_sidebands(group, pairs, bw)
         # the signal's own power: its group of lines (another signal in the recording,
         # outside the group, is not this one's and is left out)
         pad = 2.0 * group.spacing_hz
@@ -532,6 +533,12 @@ class FmProcessor:
             )
         return FmSetup(centroid, bw, post, tuple(notes), at_edge)
 
+    def _room(self, c_hz: float) -> float:
+        """Distance from a frequency to the nearer edge of the recording's band (0 Hz and
+        fs/2 for a beat note, +/-fs/2 for I/Q)."""
+        half = self.fs / 2.0
+        return min(c_hz - (0.0 if self.kind == "real" else -half), half - c_hz)
+
     def _sideband_pairs(self, group: CarrierGroup, bin_hz: float):
         """The group's sideband pairs as [(offset_hz, power, cut_by_edge)]: FM's
         sidebands come in pairs at carrier +/- k fm of equal size (|J_-k| = |J_k|), so a
@@ -562,12 +569,12 @@ class FmProcessor:
                 pairs.append((float(d[i]), float(pw[i] + pw[j]), False))
         return pairs
 
-    def _refuse_cut_sidebands(self, group: CarrierGroup, bw: float, bin_hz: float) -> None:
+    def _refuse_cut_sidebands(self, group: CarrierGroup, pairs, bw: float) -> None:
         """Refuse an IF band (or a band edge) that cuts the modulation: when the sideband
         pairs outside the IF band hold more power than those inside, the tone is (mostly)
         filtered out and the deviation would read near zero, however little power the
-        sidebands hold against the carrier (beta 0.2: 2%, which the IF share passes)."""
-        pairs = self._sideband_pairs(group, bin_hz)
+        sidebands hold against the carrier (beta 0.2: 2%, which the IF share passes).
+        `pairs` are the group's `_sideband_pairs`."""
         out = [(d, pw) for d, pw, cut in pairs if cut or d > bw / 2]
         inside = sum(pw for d, pw, cut in pairs if not cut and d <= bw / 2)
         if not out or sum(pw for _, pw in out) <= inside:
@@ -575,7 +582,7 @@ class FmProcessor:
         c = group.centre_hz
         first_out = min(d for d, _ in out)
         want = 2.4 * first_out
-        room = min(c, self.fs / 2 - c) if self.kind == "real" else self.fs / 2 - abs(c)
+        room = self._room(c)
         ask = (
             f"widen --if-bandwidth to at least {want:.0f} Hz"
             if want / 2 < room * 0.95
@@ -592,25 +599,26 @@ class FmProcessor:
             f"deviation read as zero); {ask}"
         )
 
-    def _check_band_edges(self, group: CarrierGroup, notes: list[str], bin_hz: float) -> bool:
+    def _check_band_edges(self, group: CarrierGroup, pairs, notes: list[str]) -> bool:
         """A signal reaching past the edge of the recording's band (0 Hz and fs/2 for a
         beat note, +/-fs/2 for I/Q) is cut there or folded back onto itself. The extent
         that holds 99% of the group's line power, seen from its centre, must fit inside
         the band, or it is refused; when only the next line beyond that extent (under 1%
         of the power) crosses the edge, a note says so. (A signal folded at the edge can
-        look narrower than it is: the note is the most a spectrum can tell there.)"""
+        look narrower than it is: the note is the most a spectrum can tell there.)
+        `pairs` are the group's `_sideband_pairs`; without any there is nothing to fold
+        (a lone carrier, perhaps with harmonics)."""
         half = self.fs / 2.0
-        lo_edge = 0.0 if self.kind == "real" else -half
         f, pw, c = group.lines_hz, group.line_power, group.centre_hz
         total = float(pw.sum())
-        if total <= 0 or f.size < 2 or not self._sideband_pairs(group, bin_hz):
-            return False  # a lone carrier (perhaps with harmonics): nothing to fold
+        if total <= 0 or not pairs:
+            return False
         order = np.argsort(np.abs(f - c))
         held = np.cumsum(pw[order]) / total
         d99 = float(np.abs(f - c)[order][int(np.searchsorted(held, 0.99))])
-        room = min(c - lo_edge, half - c)
-        edge = "0 Hz" if c - lo_edge < half - c and self.kind == "real" else None
-        edge = edge or (f"{-half:g} Hz" if c - lo_edge < half - c else f"{half:g} Hz")
+        room = self._room(c)
+        lo_edge = 0.0 if self.kind == "real" else -half
+        edge = f"{lo_edge if c - lo_edge < half - c else half:g} Hz"
         if d99 >= room:
             raise InputError(
                 f"{self.meta.source}: the signal around {c:.0f} Hz reaches past the edge of "

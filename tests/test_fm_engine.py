@@ -497,6 +497,18 @@ class TestBadInput:
             match="does not fit around the carrier in this recording",
         )  # fmt: skip
 
+    def test_folded_but_measured_signal_is_not_trusted(self, ffmpeg, tmp_path):
+        # carrier 1200 Hz, beta 1.5 at 400 Hz: the 3rd lower line sits on 0 Hz and the 4th
+        # (-400 Hz) folds onto the 2nd (400 Hz); every sideband keeps a partner, so it is
+        # measured, but its lines no longer fit one-tone FM (the |J_k| fit, scipy.special.jv,
+        # leaves a residual over 0.05) and the index reads off the generator's 1.5: the
+        # summary says not to trust it
+        p = beat_fm(ffmpeg, tmp_path / "fm.wav", carrier=1200.0, beta=1.5, fm=400.0)
+        a, fm = fm_summary(p, "beat")
+        assert fm["bessel"]["residual"] > 0.05
+        assert fm["mod_index"] != pytest.approx(1.5, rel=0.005)
+        assert any("NOT to be trusted" in w for w in a.summary.warnings)
+
     def test_outer_lines_at_the_edge_are_noted_only(self, ffmpeg, tmp_path):
         # beta 2 at 3 kHz on a 10 kHz carrier: the 4th lines (J4(2)^2 = 0.1% of the power
         # each, scipy.special.jv) fall at -2 kHz; the figures stay within 0.5%
