@@ -293,32 +293,15 @@ def find_carrier(
     return CarrierGroup(centre, width, snr_db, freqs[group], p[group], spacing * fs_hz / n)
 
 
-def power_fraction_within(
-    x: np.ndarray,
-    fs_hz: float,
-    kind: str,
-    lo_hz: float,
-    hi_hz: float,
-    *,
-    spectrum=None,
-    of: tuple[float, float] | None = None,
-):
-    """Share of the signal's power (above the noise floor) between lo_hz and hi_hz: of
-    all the power in the gate, or of the power between the bounds `of` and in the band
-    (one signal's share when the recording holds others)."""
-    freqs, p = spectrum if spectrum is not None else _gate_power(x, fs_hz, kind)
+def _power_share(spectrum, lo_hz: float, hi_hz: float, within: tuple[float, float]) -> float:
+    """Share of the power above the noise floor between `within`'s bounds (one signal's
+    span) that lies between lo_hz and hi_hz (its IF band)."""
+    freqs, p = spectrum
     p = np.maximum(p - np.median(p), 0.0)  # the noise floor is not signal
-    if of is not None:
-        p = np.where(
-            ((freqs >= of[0]) & (freqs <= of[1])) | ((freqs >= lo_hz) & (freqs <= hi_hz)),
-            p,
-            0.0,
-        )
-    total = float(p.sum())
+    total = float(p[(freqs >= within[0]) & (freqs <= within[1])].sum())
     if total <= 0:
         return 1.0
-    sel = (freqs >= lo_hz) & (freqs <= hi_hz)
-    return float(p[sel].sum()) / total
+    return float(p[(freqs >= lo_hz) & (freqs <= hi_hz)].sum()) / total
 
 
 @dataclass(frozen=True)
@@ -487,20 +470,12 @@ class FmProcessor:
         else:
             bw = min(bw, 0.8 * self.fs)
         self._refuse_cut_sidebands(group, pairs, bw)
-        # the signal's own power: its group of lines (another signal in the recording,
-        # outside the group, is not this one's and is left out)
+        # the signal's own power: its group of lines and its IF band (another signal in
+        # the recording, outside them, is not this one's and is left out)
         pad = 2.0 * group.spacing_hz
-        inside = power_fraction_within(
-            x,
-            self.fs,
-            self.kind,
-            centroid - bw / 2,
-            centroid + bw / 2,
-            spectrum=spectrum,
-            of=(float(lines.min()) - pad, float(lines.max()) + pad),
-        )
         lo_own = min(float(lines.min()) - pad, centroid - bw / 2)
         hi_own = max(float(lines.max()) + pad, centroid + bw / 2)
+        inside = _power_share(spectrum, centroid - bw / 2, centroid + bw / 2, (lo_own, hi_own))
         other = _other_lines_share(spectrum, lo_own, hi_own)
         if other > 1.0 - IF_POWER_MIN_FRACTION:
             notes.append(
